@@ -1,0 +1,17 @@
+"""Grovewise: review tree-ensemble classifiers and sign them off.
+
+The public API (see the project's API contract): intake (``load_model``, ``from_estimator``,
+``load_data``), anatomy, proximity, the surrogate, and the review.
+"""
+
+from .errors import (DataError, GrovewiseError, ModelFileError, SettingError, UnsafeModelError,
+                     UnsupportedModelError)
+from .forest import Forest, Tree
+from .loaders import from_estimator, load_model
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "DataError", "Forest", "GrovewiseError", "ModelFileError", "SettingError", "Tree",
+    "UnsafeModelError", "UnsupportedModelError", "from_estimator", "load_model", "__version__",
+]

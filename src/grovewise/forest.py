@@ -1,0 +1,291 @@
+"""The one normalized in-memory tree ensemble, with exact prediction.
+
+Every model format is converted once into a :class:`Forest`; every analysis reads it and
+nothing else. A Forest reproduces the source library's ``predict_proba``, ``predict`` and
+``apply`` exactly, because it keeps the library's own comparison rule (which float type,
+``<=`` or ``<``) and its own way of turning leaf values into class probabilities.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+from scipy.special import expit
+
+from .errors import DataError
+
+# How a split node compares a feature value with its threshold (the library's own rule).
+COMPARE_LE_FLOAT32 = "le_float32"  # scikit-learn trees: float32(x) <= threshold (float64)
+COMPARE_LE_FLOAT64 = "le_float64"  # scikit-learn histogram boosting: x <= threshold
+COMPARE_LT_FLOAT32 = "lt_float32"  # XGBoost: float32(x) < float32(threshold)
+COMPARES = (COMPARE_LE_FLOAT32, COMPARE_LE_FLOAT64, COMPARE_LT_FLOAT32)
+
+# How leaf values become class probabilities.
+LINK_MEAN = "mean"  # each leaf holds class probabilities; the ensemble averages them
+LINK_LOGISTIC = "logistic"  # one output: p(classes_[1]) = expit(base + sum of leaf values)
+LINK_SOFTMAX = "softmax"  # one output per class: softmax(base + sum of leaf values)
+LINKS = (LINK_MEAN, LINK_LOGISTIC, LINK_SOFTMAX)
+
+
+@dataclass(frozen=True, eq=False)
+class Tree:
+    """One tree as flat node arrays (node 0 is the root).
+
+    Leaves have ``feature == -1`` and ``left == right == -1``. ``value`` holds, per node,
+    class probabilities (``LINK_MEAN``) or the node's additive contribution to output column
+    ``output`` already multiplied by any learning rate (``LINK_LOGISTIC``/``LINK_SOFTMAX``).
+    ``gain`` is the split's weighted impurity decrease (scikit-learn) or loss change
+    (XGBoost) and ``cover`` the weighted number of training samples (scikit-learn) or the
+    hessian sum (XGBoost) reaching the node.
+    """
+
+    feature: np.ndarray
+    threshold: np.ndarray
+    left: np.ndarray
+    right: np.ndarray
+    missing_left: np.ndarray
+    value: np.ndarray
+    depth: np.ndarray
+    gain: np.ndarray
+    cover: np.ndarray
+    output: int = 0
+
+    @property
+    def n_nodes(self) -> int:
+        return int(self.feature.shape[0])
+
+    @property
+    def is_leaf(self) -> np.ndarray:
+        return self.left < 0
+
+    @property
+    def n_leaves(self) -> int:
+        return int(np.count_nonzero(self.is_leaf))
+
+    @property
+    def max_depth(self) -> int:
+        return int(self.depth.max())
+
+
+def node_depths(left: np.ndarray, right: np.ndarray) -> np.ndarray:
+    """Depth of every node of a tree given by child arrays (-1 at leaves), root at 0."""
+    depth = np.zeros(left.shape[0], dtype=np.int64)
+    frontier = np.array([0], dtype=np.int64)
+    level = 0
+    while frontier.size:
+        depth[frontier] = level
+        internal = frontier[left[frontier] >= 0]
+        frontier = np.concatenate([left[internal], right[internal]])
+        level += 1
+    return depth
+
+
+@dataclass(eq=False)
+class Forest:
+    """A tree ensemble classifier in one normalized form.
+
+    Attributes
+    ----------
+    trees : list of Tree
+        In the source library's order (scikit-learn's ``estimators_`` flattened row-major
+        for gradient boosting, the booster's order for XGBoost).
+    classes_ : ndarray
+        Class labels, in the order of ``predict_proba``'s columns.
+    feature_names : list of str
+        The model's feature names, or ``x0, x1, ...`` when it has none
+        (``has_feature_names`` is then False).
+    kind : str
+        ``decision_tree``, ``random_forest``, ``extra_trees``, ``gradient_boosting``,
+        ``hist_gradient_boosting`` or ``xgboost``.
+    link : str
+        One of ``LINKS``.
+    compare : str
+        One of ``COMPARES``.
+    base_score : ndarray
+        The raw margin every sample starts from, one per output (sum links only).
+    source : dict
+        What the model came from (library, version, estimator, objective, ...).
+    """
+
+    trees: list[Tree]
+    classes_: np.ndarray
+    feature_names: list[str]
+    kind: str
+    link: str
+    compare: str
+    base_score: np.ndarray = field(default_factory=lambda: np.zeros(1))
+    has_feature_names: bool = True
+    source: dict = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        if self.link not in LINKS:
+            raise ValueError(f"unknown link {self.link!r}; expected one of {LINKS}")
+        if self.compare not in COMPARES:
+            raise ValueError(f"unknown comparison {self.compare!r}; expected one of {COMPARES}")
+        self.classes_ = np.asarray(self.classes_)
+        self.base_score = np.asarray(self.base_score, dtype=np.float64).reshape(-1)
+        self.feature_names = [str(f) for f in self.feature_names]
+
+    # ------------------------------------------------------------------ summary
+    @property
+    def n_trees(self) -> int:
+        return len(self.trees)
+
+    @property
+    def n_features(self) -> int:
+        return len(self.feature_names)
+
+    @property
+    def n_classes(self) -> int:
+        return int(self.classes_.shape[0])
+
+    @property
+    def n_outputs(self) -> int:
+        """Columns of the raw margin (sum links) or of the averaged probabilities (mean)."""
+        if self.link == LINK_MEAN:
+            return self.n_classes
+        return 1 if self.link == LINK_LOGISTIC else self.n_classes
+
+    @property
+    def max_depth(self) -> int:
+        return max(t.max_depth for t in self.trees)
+
+    @property
+    def used_features(self) -> np.ndarray:
+        """Indices of the features at least one split uses, ascending."""
+        used = np.zeros(self.n_features, dtype=bool)
+        for t in self.trees:
+            used[t.feature[t.feature >= 0]] = True
+        return np.flatnonzero(used)
+
+    # ------------------------------------------------------------------ input
+    def check_X(self, X) -> np.ndarray:
+        """``X`` as a float64 array of shape (n, n_features), or a DataError saying what is off."""
+        try:
+            arr = np.asarray(X, dtype=np.float64)
+        except (TypeError, ValueError) as exc:
+            raise DataError(f"the data could not be read as numbers ({exc}); "
+                            "give a numeric array or table with one column per feature") from None
+        if arr.ndim == 1:
+            arr = arr.reshape(1, -1)
+        if arr.ndim != 2 or arr.shape[1] != self.n_features:
+            raise DataError(f"the data has shape {arr.shape}, but the model expects "
+                            f"{self.n_features} feature columns ({', '.join(self.feature_names[:5])}"
+                            f"{', ...' if self.n_features > 5 else ''}); give one column per feature")
+        return arr
+
+    def _compare_input(self, X: np.ndarray) -> np.ndarray:
+        if self.compare == COMPARE_LE_FLOAT64:
+            return X
+        return X.astype(np.float32).astype(np.float64)
+
+    # ------------------------------------------------------------------ flat layout
+    @cached_property
+    def _flat(self) -> dict:
+        """All trees' nodes in one set of arrays, children as global indices."""
+        sizes = np.array([t.n_nodes for t in self.trees], dtype=np.int64)
+        offsets = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+        feature = np.concatenate([t.feature for t in self.trees]).astype(np.int64)
+        threshold = np.concatenate([t.threshold for t in self.trees]).astype(np.float64)
+        if self.compare == COMPARE_LT_FLOAT32:
+            threshold = threshold.astype(np.float32).astype(np.float64)
+        left = np.concatenate([np.where(t.left >= 0, t.left + o, -1)
+                               for t, o in zip(self.trees, offsets)])
+        right = np.concatenate([np.where(t.right >= 0, t.right + o, -1)
+                                for t, o in zip(self.trees, offsets)])
+        missing_left = np.concatenate([t.missing_left for t in self.trees]).astype(bool)
+        leaf = left < 0
+        # A leaf's children point at itself, so traversal can step every row at once.
+        idx = np.arange(feature.shape[0])
+        left = np.where(leaf, idx, left)
+        right = np.where(leaf, idx, right)
+        # NaN goes where missing_left says: fold that into one child array per direction.
+        return {
+            "offsets": offsets,
+            "feature": np.where(leaf, 0, feature),
+            "threshold": threshold,
+            "left": left,
+            "right": right,
+            "nan_child": np.where(missing_left, left, right),
+            "leaf": leaf,
+        }
+
+    def _leaf_nodes(self, X: np.ndarray) -> np.ndarray:
+        """Global node index of the leaf each row reaches in each tree, shape (n, n_trees)."""
+        flat = self._flat
+        Xc = self._compare_input(X)
+        n, n_trees = Xc.shape[0], self.n_trees
+        p = Xc.shape[1]
+        cur = np.broadcast_to(flat["offsets"], (n, n_trees)).reshape(-1).copy()
+        rows = np.repeat(np.arange(n, dtype=np.int64) * p, n_trees)
+        active = np.flatnonzero(~flat["leaf"][cur])
+        xflat = Xc.reshape(-1)
+        strict = self.compare == COMPARE_LT_FLOAT32
+        feature, threshold = flat["feature"], flat["threshold"]
+        left, right, nan_child, leaf = flat["left"], flat["right"], flat["nan_child"], flat["leaf"]
+        while active.size:
+            node = cur[active]
+            x = xflat[rows[active] + feature[node]]
+            t = threshold[node]
+            go_left = (x < t) if strict else (x <= t)
+            nxt = np.where(go_left, left[node], right[node])
+            nan = np.isnan(x)
+            if nan.any():
+                nxt[nan] = nan_child[node[nan]]
+            cur[active] = nxt
+            active = active[~leaf[nxt]]
+        return cur.reshape(n, n_trees)
+
+    # ------------------------------------------------------------------ prediction
+    def apply(self, X) -> np.ndarray:
+        """Leaf id (the node's index within its tree) per row and tree, shape (n, n_trees)."""
+        X = self.check_X(X)
+        return self._leaf_nodes(X) - self._flat["offsets"][None, :]
+
+    def decision_function(self, X) -> np.ndarray:
+        """Raw margin (sum links), shape (n, n_outputs); for the mean link, the mean probabilities."""
+        X = self.check_X(X)
+        return self._raw_from_leaves(self._leaf_nodes(X))
+
+    def _raw_from_leaves(self, leaves: np.ndarray) -> np.ndarray:
+        n = leaves.shape[0]
+        offsets = self._flat["offsets"]
+        if self.link == LINK_MEAN:
+            acc = np.zeros((n, self.n_classes))
+            for j, tree in enumerate(self.trees):
+                acc += tree.value[leaves[:, j] - offsets[j]]
+            return acc / self.n_trees
+        raw = np.zeros((n, self.n_outputs))
+        raw += self.base_score[None, :]
+        for j, tree in enumerate(self.trees):
+            raw[:, tree.output] += tree.value[leaves[:, j] - offsets[j], 0]
+        return raw
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Class probabilities, shape (n, n_classes), as the source library computes them."""
+        raw = self.decision_function(X)
+        return self.proba_from_raw(raw)
+
+    def proba_from_raw(self, raw: np.ndarray) -> np.ndarray:
+        if self.link == LINK_MEAN:
+            return raw
+        if self.link == LINK_LOGISTIC:
+            p1 = expit(raw[:, 0])
+            return np.column_stack([1.0 - p1, p1])
+        z = raw - raw.max(axis=1, keepdims=True)
+        e = np.exp(z)
+        return e / e.sum(axis=1, keepdims=True)
+
+    def predict(self, X) -> np.ndarray:
+        """Predicted class labels (``classes_[argmax predict_proba]``)."""
+        return self.classes_[np.argmax(self.predict_proba(X), axis=1)]
+
+    def predict_index(self, X) -> np.ndarray:
+        """Predicted class as an index into ``classes_``."""
+        return np.argmax(self.predict_proba(X), axis=1)
+
+    def __repr__(self) -> str:
+        return (f"Forest(kind={self.kind!r}, n_trees={self.n_trees}, n_features={self.n_features}, "
+                f"classes={list(self.classes_)!r})")

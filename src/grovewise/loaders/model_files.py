@@ -1,0 +1,152 @@
+"""Model files -> Forest, refusing files that could run code unless the user trusts them.
+
+- ``.json`` / ``.ubj``: XGBoost's own model files (read by XGBoost; no code runs).
+- ``.skops``: scikit-learn models saved with skops; only the types a tree ensemble needs are
+  accepted unless the file is trusted.
+- ``.pkl`` / ``.pickle`` / ``.joblib``: can run code on load; refused unless trusted.
+"""
+
+from __future__ import annotations
+
+import json
+import zipfile
+from pathlib import Path
+
+from ..errors import GrovewiseError, ModelFileError, UnsafeModelError
+from ..forest import Forest
+from .estimators import from_estimator
+from .xgboost_models import forest_from_xgboost_json
+
+XGBOOST_SUFFIXES = (".json", ".ubj")
+SKOPS_SUFFIXES = (".skops",)
+PICKLE_SUFFIXES = (".pkl", ".pickle", ".joblib")
+SUFFIXES = XGBOOST_SUFFIXES + SKOPS_SUFFIXES + PICKLE_SUFFIXES
+
+# Types beyond skops' own defaults that a supported scikit-learn tree model holds.
+SKOPS_ALLOWED = frozenset({
+    "sklearn.tree._tree.Tree",
+    "sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
+    "sklearn.ensemble._hist_gradient_boosting.binning._BinMapper",
+    "sklearn._loss.loss.HalfBinomialLoss",
+    "sklearn._loss.loss.HalfMultinomialLoss",
+    "sklearn._loss.link.LogitLink",
+    "sklearn._loss.link.MultinomialLogit",
+    "sklearn._loss.link.Interval",
+    "sklearn.dummy.DummyClassifier",
+    "sklearn.ensemble._gb.BinomialDeviance",
+    "sklearn.ensemble._gb.MultinomialDeviance",
+    "numpy.dtype",
+    "numpy.random.mtrand.RandomState",
+    "builtins.object",
+})
+
+EXPECTED = ("an XGBoost model (.json or .ubj), a scikit-learn model saved with skops (.skops), "
+            "or, only when you trust its origin, a pickle/joblib file (.pkl, .pickle, .joblib)")
+
+
+def load_model(path, *, trusted: bool = False) -> Forest:
+    """Read a model file into a :class:`~grovewise.forest.Forest`.
+
+    Parameters
+    ----------
+    path : str or Path
+        The model file; its suffix selects the format (see module docstring).
+    trusted : bool
+        Say that the file comes from a trusted source: allows pickle/joblib files and skops
+        files holding types outside the tree-ensemble allow-list. Loading such a file can
+        run code.
+
+    Raises
+    ------
+    UnsafeModelError
+        A pickle/joblib file, or a skops file with unexpected types, without ``trusted``.
+    ModelFileError
+        Missing, empty, damaged or unknown files, naming the file and what was expected.
+    UnsupportedModelError
+        A readable model of a kind or variant Grovewise cannot reproduce exactly.
+    """
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix not in SUFFIXES:
+        raise ModelFileError(f"{p}: unknown model file type {p.suffix or '(no suffix)'!r}; "
+                             f"expected {EXPECTED}.")
+    if not p.is_file():
+        raise ModelFileError(f"{p}: no such file; check the path.")
+    if p.stat().st_size == 0:
+        raise ModelFileError(f"{p}: the file is empty; expected {EXPECTED}.")
+    if suffix in PICKLE_SUFFIXES:
+        if not trusted:
+            raise UnsafeModelError(
+                f"{p}: pickle and joblib files can run code when opened, so Grovewise does not "
+                "open them by default. Save the model with skops (.skops) or XGBoost's "
+                "save_model (.json), or, only if you trust where the file comes from, open it "
+                "as trusted (--trust on the command line).")
+        return _load_pickle(p)
+    if suffix in SKOPS_SUFFIXES:
+        return _load_skops(p, trusted)
+    return _load_xgboost(p)
+
+
+def _load_xgboost(p: Path) -> Forest:
+    import xgboost
+
+    if p.suffix.lower() == ".json":
+        try:
+            doc = json.loads(p.read_text(encoding="utf-8"))
+        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raise ModelFileError(f"{p}: not valid JSON ({exc}); expected an XGBoost model "
+                                 "written by save_model.") from None
+        if not isinstance(doc, dict) or "learner" not in doc:
+            raise ModelFileError(f"{p}: JSON, but not an XGBoost model (no 'learner' entry); "
+                                 "expected a file written by XGBoost's save_model.")
+    booster = xgboost.Booster()
+    try:
+        booster.load_model(str(p))
+    except (xgboost.core.XGBoostError, ValueError, OSError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise ModelFileError(f"{p}: XGBoost could not read this file ({first[:200]}); it may be "
+                             "damaged or truncated; save the model again with save_model.") from None
+    forest = forest_from_xgboost_json(json.loads(booster.save_raw("json")), where=str(p))
+    forest.source.update({"estimator": "Booster", "file": str(p)})
+    return forest
+
+
+def _load_skops(p: Path, trusted: bool) -> Forest:
+    import skops.io as sio
+
+    try:
+        found = sio.get_untrusted_types(file=str(p))
+    except (zipfile.BadZipFile, KeyError, ValueError, OSError, json.JSONDecodeError) as exc:
+        raise ModelFileError(f"{p}: not a readable skops file ({type(exc).__name__}: {exc}); "
+                             "it may be damaged or truncated; save the model again with "
+                             "skops.io.dump.") from None
+    unexpected = sorted(set(found) - SKOPS_ALLOWED)
+    if unexpected and not trusted:
+        raise UnsafeModelError(
+            f"{p}: the file holds types outside those a tree ensemble needs "
+            f"({', '.join(unexpected[:6])}{', ...' if len(unexpected) > 6 else ''}); Grovewise "
+            "does not load them by default. Open it as trusted (--trust) only if you trust "
+            "where the file comes from.")
+    try:
+        est = sio.load(str(p), trusted=list(found))
+    except GrovewiseError:
+        raise
+    except Exception as exc:  # skops raises many kinds on damaged content
+        raise ModelFileError(f"{p}: skops could not load the model ({type(exc).__name__}: "
+                             f"{exc}); save it again with skops.io.dump.") from None
+    forest = from_estimator(est)
+    forest.source["file"] = str(p)
+    return forest
+
+
+def _load_pickle(p: Path) -> Forest:
+    import joblib
+
+    try:
+        est = joblib.load(p)
+    except Exception as exc:  # any unpickling failure
+        raise ModelFileError(f"{p}: the pickle/joblib file could not be read ({type(exc).__name__}: "
+                             f"{exc}); it may be damaged or written by other library versions.") from None
+    forest = from_estimator(est)
+    forest.source["file"] = str(p)
+    return forest

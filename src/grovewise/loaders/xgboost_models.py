@@ -1,0 +1,134 @@
+"""XGBoost classifiers (XGBClassifier, Booster, or the model's JSON) -> Forest.
+
+The model is read from XGBoost's own JSON form of the booster. Trees keep the booster's
+order and node ids, so ``Forest.apply`` equals ``pred_leaf``. XGBoost compares in float32
+with ``<`` and sends a missing value the node's default direction; the Forest does the same.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+
+from ..errors import ModelFileError, UnsupportedModelError
+from ..forest import COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, Forest, Tree, node_depths
+
+OBJECTIVES = ("binary:logistic", "multi:softprob", "multi:softmax")
+
+
+def is_xgboost_model(obj) -> bool:
+    return type(obj).__module__.split(".")[0] == "xgboost"
+
+
+def _parse_floats(text) -> np.ndarray:
+    """base_score is stored as '5E-1' (older) or '[5E-1]' / '[a,b,c]' (newer)."""
+    if isinstance(text, (int, float)):
+        return np.array([float(text)])
+    s = str(text).strip().strip("[]")
+    return np.array([float(v) for v in s.split(",") if v.strip()], dtype=np.float64)
+
+
+def _convert_tree(t: dict, output: int) -> Tree:
+    if int(t["tree_param"].get("size_leaf_vector", "1")) > 1:
+        raise UnsupportedModelError("XGBoost: multi-target (vector-leaf) trees are not supported; "
+                                    "retrain with multi_strategy='one_output_per_tree'.")
+    left = np.asarray(t["left_children"], dtype=np.int64)
+    right = np.asarray(t["right_children"], dtype=np.int64)
+    leaf = left < 0
+    split_type = np.asarray(t.get("split_type", [0] * left.shape[0]), dtype=np.int64)
+    if np.any(split_type[~leaf] != 0):
+        raise UnsupportedModelError("XGBoost: categorical splits are not supported; retrain with "
+                                    "numeric (e.g. one-hot encoded) features.")
+    cond = np.asarray(t["split_conditions"], dtype=np.float32).astype(np.float64)
+    return Tree(
+        feature=np.where(leaf, -1, np.asarray(t["split_indices"], dtype=np.int64)),
+        threshold=np.where(leaf, 0.0, cond),
+        left=left, right=right,
+        missing_left=np.asarray(t["default_left"], dtype=bool) & ~leaf,
+        value=np.where(leaf, cond, 0.0).reshape(-1, 1),
+        depth=node_depths(left, right),
+        gain=np.where(leaf, 0.0, np.asarray(t["loss_changes"], dtype=np.float64)),
+        cover=np.asarray(t["sum_hessian"], dtype=np.float64),
+        output=output,
+    )
+
+
+def forest_from_xgboost_json(model: dict, *, classes=None, where: str = "the model") -> Forest:
+    """Convert XGBoost's JSON model (as a dict) into a Forest.
+
+    ``classes`` are the labels of the classes in output order (an XGBClassifier's
+    ``classes_``); without them the classes are 0..K-1, as XGBoost itself numbers them.
+    """
+    try:
+        learner = model["learner"]
+        booster = learner["gradient_booster"]
+        objective = learner["objective"]["name"]
+        params = learner["learner_model_param"]
+    except (KeyError, TypeError):
+        raise ModelFileError(f"{where} is JSON but not an XGBoost model (no learner / "
+                             "gradient_booster / objective); give a file written by XGBoost's "
+                             "save_model.") from None
+    if booster.get("name") != "gbtree":
+        raise UnsupportedModelError(f"XGBoost booster {booster.get('name')!r} in {where} is not "
+                                    "supported; only tree boosters ('gbtree') are.")
+    if objective not in OBJECTIVES:
+        raise UnsupportedModelError(f"XGBoost objective {objective!r} in {where} is not a "
+                                    f"supported classifier objective ({', '.join(OBJECTIVES)}).")
+    gbtree = booster["model"]
+    trees_json = gbtree["trees"]
+    tree_info = gbtree["tree_info"]
+    indptr = gbtree.get("iteration_indptr")
+    best = learner.get("attributes", {}).get("best_iteration")
+    if best is not None and indptr:
+        # The scikit-learn wrapper predicts with the trees up to the best iteration.
+        trees_json = trees_json[: indptr[int(best) + 1]]
+        tree_info = tree_info[: indptr[int(best) + 1]]
+    num_class = int(params.get("num_class", "0"))
+    n_classes = max(num_class, 2)
+    base = _parse_floats(params["base_score"])
+    if objective == "binary:logistic":
+        link = LINK_LOGISTIC
+        p = float(base[0])
+        base = np.array([math.log(p / (1.0 - p))])
+    else:
+        link = LINK_SOFTMAX
+        base = np.broadcast_to(base, (n_classes,)).copy() if base.size in (1, n_classes) else base
+    trees = [_convert_tree(t, int(k)) for t, k in zip(trees_json, tree_info)]
+    n_features = int(params["num_feature"])
+    names = [str(n) for n in learner.get("feature_names") or []]
+    has = len(names) == n_features and n_features > 0
+    if not has:
+        names = [f"x{j}" for j in range(n_features)]
+    labels = np.arange(n_classes) if classes is None else np.asarray(classes)
+    if labels.shape[0] != n_classes:
+        raise ModelFileError(f"{where} has {n_classes} classes but {labels.shape[0]} labels were given.")
+    version = model.get("version", [])
+    return Forest(trees=trees, classes_=labels, feature_names=names, has_feature_names=has,
+                  kind="xgboost", link=link, compare=COMPARE_LT_FLOAT32, base_score=base,
+                  source={"library": "xgboost", "version": ".".join(str(v) for v in version),
+                          "objective": objective})
+
+
+def forest_from_xgboost(obj) -> Forest:
+    """Convert a fitted XGBClassifier or a Booster into a Forest."""
+    import xgboost
+
+    if isinstance(obj, xgboost.XGBModel):
+        if not isinstance(obj, xgboost.XGBClassifier):
+            raise UnsupportedModelError(f"{type(obj).__name__} is not a classifier; Grovewise "
+                                        "reviews classifiers (XGBClassifier).")
+        try:
+            booster = obj.get_booster()
+        except xgboost.core.XGBoostError:
+            raise UnsupportedModelError("the XGBClassifier is not fitted; fit it first.") from None
+        classes = getattr(obj, "classes_", None)
+        forest = forest_from_xgboost_json(json.loads(booster.save_raw("json")), classes=classes)
+        forest.source["estimator"] = "XGBClassifier"
+        return forest
+    if isinstance(obj, xgboost.Booster):
+        forest = forest_from_xgboost_json(json.loads(obj.save_raw("json")))
+        forest.source["estimator"] = "Booster"
+        return forest
+    raise UnsupportedModelError(f"{type(obj).__name__} is not a supported XGBoost model.")
