@@ -15,6 +15,7 @@ import numpy as np
 from scipy.special import expit
 
 from .errors import DataError
+from .traversal import leaf_nodes
 
 # How a split node compares a feature value with its threshold (the library's own rule).
 COMPARE_LE_FLOAT32 = "le_float32"  # scikit-learn trees: float32(x) <= threshold (float64)
@@ -184,59 +185,31 @@ class Forest:
     # ------------------------------------------------------------------ flat layout
     @cached_property
     def _flat(self) -> dict:
-        """All trees' nodes in one set of arrays, children as global indices."""
+        """All trees' nodes in one set of arrays, children as global indices (-1 at leaves)."""
         sizes = np.array([t.n_nodes for t in self.trees], dtype=np.int64)
-        offsets = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-        feature = np.concatenate([t.feature for t in self.trees]).astype(np.int64)
+        offsets = np.concatenate([[0], np.cumsum(sizes)[:-1]]).astype(np.int64)
         threshold = np.concatenate([t.threshold for t in self.trees]).astype(np.float64)
         if self.compare == COMPARE_LT_FLOAT32:
             threshold = threshold.astype(np.float32).astype(np.float64)
-        left = np.concatenate([np.where(t.left >= 0, t.left + o, -1)
-                               for t, o in zip(self.trees, offsets)])
-        right = np.concatenate([np.where(t.right >= 0, t.right + o, -1)
-                                for t, o in zip(self.trees, offsets)])
-        missing_left = np.concatenate([t.missing_left for t in self.trees]).astype(bool)
-        leaf = left < 0
-        # A leaf's children point at itself, so traversal can step every row at once.
-        idx = np.arange(feature.shape[0])
-        left = np.where(leaf, idx, left)
-        right = np.where(leaf, idx, right)
-        # NaN goes where missing_left says: fold that into one child array per direction.
+        def children(side: str) -> np.ndarray:
+            return np.concatenate([np.where(getattr(t, side) >= 0, getattr(t, side) + o, -1)
+                                   for t, o in zip(self.trees, offsets)]).astype(np.int64)
         return {
             "offsets": offsets,
-            "feature": np.where(leaf, 0, feature),
+            "feature": np.concatenate([t.feature for t in self.trees]).astype(np.int64),
             "threshold": threshold,
-            "left": left,
-            "right": right,
-            "nan_child": np.where(missing_left, left, right),
-            "leaf": leaf,
+            "left": children("left"),
+            "right": children("right"),
+            "missing_left": np.concatenate([t.missing_left for t in self.trees]).astype(np.bool_),
         }
 
     def _leaf_nodes(self, X: np.ndarray) -> np.ndarray:
         """Global node index of the leaf each row reaches in each tree, shape (n, n_trees)."""
         flat = self._flat
-        Xc = self._compare_input(X)
-        n, n_trees = Xc.shape[0], self.n_trees
-        p = Xc.shape[1]
-        cur = np.broadcast_to(flat["offsets"], (n, n_trees)).reshape(-1).copy()
-        rows = np.repeat(np.arange(n, dtype=np.int64) * p, n_trees)
-        active = np.flatnonzero(~flat["leaf"][cur])
-        xflat = Xc.reshape(-1)
-        strict = self.compare == COMPARE_LT_FLOAT32
-        feature, threshold = flat["feature"], flat["threshold"]
-        left, right, nan_child, leaf = flat["left"], flat["right"], flat["nan_child"], flat["leaf"]
-        while active.size:
-            node = cur[active]
-            x = xflat[rows[active] + feature[node]]
-            t = threshold[node]
-            go_left = (x < t) if strict else (x <= t)
-            nxt = np.where(go_left, left[node], right[node])
-            nan = np.isnan(x)
-            if nan.any():
-                nxt[nan] = nan_child[node[nan]]
-            cur[active] = nxt
-            active = active[~leaf[nxt]]
-        return cur.reshape(n, n_trees)
+        Xc = np.ascontiguousarray(self._compare_input(X))
+        return leaf_nodes(Xc, flat["feature"], flat["threshold"], flat["left"], flat["right"],
+                          flat["missing_left"], flat["offsets"],
+                          self.compare == COMPARE_LT_FLOAT32)
 
     # ------------------------------------------------------------------ prediction
     def apply(self, X) -> np.ndarray:
