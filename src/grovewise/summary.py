@@ -1,0 +1,85 @@
+"""A short, readable summary of a model (and of its predictions on review data)."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from .forest import Forest
+
+KIND_NAMES = {
+    "decision_tree": "decision tree",
+    "random_forest": "random forest",
+    "extra_trees": "extremely randomized trees",
+    "gradient_boosting": "gradient boosting",
+    "hist_gradient_boosting": "histogram gradient boosting",
+    "xgboost": "XGBoost gradient boosting",
+}
+
+
+@dataclass
+class ModelSummary:
+    """What a reviewer wants to know about a model before anything else."""
+
+    kind: str
+    library: str
+    n_trees: int
+    depth_min: int
+    depth_max: int
+    leaves_total: int
+    leaves_per_tree_mean: float
+    classes: list
+    n_features: int
+    features_used: list[str]
+    features_never_used: list[str]
+    has_feature_names: bool
+    rows: int | None = None
+    predicted_counts: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    def text(self) -> str:
+        lines = [
+            f"Model      {KIND_NAMES.get(self.kind, self.kind)} ({self.library})",
+            f"Trees      {self.n_trees}, depth {self.depth_min} to {self.depth_max}, "
+            f"{self.leaves_total} leaves ({self.leaves_per_tree_mean:.1f} per tree)",
+            f"Classes    {', '.join(str(c) for c in self.classes)}",
+            f"Features   {self.n_features}, {len(self.features_used)} used by some split"
+            + ("" if self.has_feature_names else " (the model has no feature names: "
+               "data columns are matched by position)"),
+        ]
+        if self.features_never_used:
+            lines.append(f"Never used {', '.join(self.features_never_used)}")
+        if self.rows is not None:
+            total = max(self.rows, 1)
+            parts = [f"{c}: {n} ({100.0 * n / total:.1f}%)" for c, n in self.predicted_counts.items()]
+            lines.append(f"Data       {self.rows} rows; predicted {'; '.join(parts)}")
+        return "\n".join(lines)
+
+
+def summarize(forest: Forest, X: np.ndarray | None = None) -> ModelSummary:
+    """Summarise ``forest``; with review data ``X``, add the predicted class counts."""
+    depths = np.array([t.max_depth for t in forest.trees])
+    leaves = np.array([t.n_leaves for t in forest.trees])
+    used = forest.used_features
+    names = forest.feature_names
+    summary = ModelSummary(
+        kind=forest.kind,
+        library=f"{forest.source.get('library', '?')} {forest.source.get('version', '')}".strip(),
+        n_trees=forest.n_trees,
+        depth_min=int(depths.min()), depth_max=int(depths.max()),
+        leaves_total=int(leaves.sum()), leaves_per_tree_mean=float(leaves.mean()),
+        classes=[c.item() if hasattr(c, "item") else c for c in forest.classes_],
+        n_features=forest.n_features,
+        features_used=[names[j] for j in used],
+        features_never_used=[n for j, n in enumerate(names) if j not in set(used.tolist())],
+        has_feature_names=forest.has_feature_names,
+    )
+    if X is not None:
+        pred = forest.predict_index(X)
+        counts = np.bincount(pred, minlength=forest.n_classes)
+        summary.rows = int(X.shape[0])
+        summary.predicted_counts = {str(c): int(n) for c, n in zip(forest.classes_, counts)}
+    return summary
