@@ -146,3 +146,21 @@ def test_inspect_runs_as_a_program(tmp_path, fitted):
     bad = subprocess.run([sys.executable, "-m", "grovewise.cli", "inspect", str(tmp_path / "no.skops")],
                          capture_output=True, text=True, env=env)
     assert bad.returncode == 2 and "Traceback" not in bad.stderr and "no such file" in " ".join(bad.stderr.split())
+
+
+def test_inspect_proves_exactness_on_the_data(tmp_path, capsys):
+    """The intake proof compares with the library's own predict_proba / pred_leaf."""
+    import pandas as pd
+
+    data = load_breast_cancer(as_frame=True)
+    frame = data.data.copy()
+    frame.iloc[::7, 3] = np.nan
+    model = xgb.XGBClassifier(n_estimators=5, max_depth=3).fit(frame, data.target)
+    path = tmp_path / "model.json"
+    model.save_model(path)
+    csv = tmp_path / "data.csv"
+    frame.assign(target=data.target).to_csv(csv, index=False)
+    assert main(["inspect", str(path), str(csv), "--target", "target"]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert "Exactness exact: on 569 rows" in out and "leaf ids equal" in out
+    assert isinstance(frame, pd.DataFrame)

@@ -7,11 +7,11 @@ The public API (see the project's API contract): intake (``load_model``, ``from_
 from .errors import (DataError, GrovewiseError, ModelFileError, SettingError, UnsafeModelError,
                      UnsupportedModelError)
 from .forest import Forest, Tree
-from .loaders import from_estimator, load_model
+from .loaders import Dataset, from_estimator, load_data, load_model
 
 __version__ = "0.1.0"
 
 __all__ = [
-    "DataError", "Forest", "GrovewiseError", "ModelFileError", "SettingError", "Tree",
-    "UnsafeModelError", "UnsupportedModelError", "from_estimator", "load_model", "__version__",
+    "DataError", "Dataset", "Forest", "GrovewiseError", "ModelFileError", "SettingError", "Tree",
+    "UnsafeModelError", "UnsupportedModelError", "from_estimator", "load_data", "load_model", "__version__",
 ]

@@ -23,32 +23,28 @@ def _say(message: str, stream=None) -> None:
           file=stream or sys.stderr)
 
 
-def _load_forest(args):
-    from .loaders import load_model
-
+def _warn_if_trusted(args) -> None:
     if getattr(args, "trust", False):
         _say(f"warning: opening {args.model} as trusted: a pickle or joblib file can run code "
              "when opened; do this only for files whose origin you trust.")
-    return load_model(args.model, trusted=getattr(args, "trust", False))
 
 
 def cmd_inspect(args) -> int:
     """Summary of a model (and of its predictions on DATA)."""
+    from .loaders import from_estimator, load_data, load_native
+    from .loaders.exactness import check_exactness
     from .summary import summarize
 
-    forest = _load_forest(args)
-    X = None
-    notes: list[str] = []
-    if args.data:
-        from .loaders.data_files import load_data
-
-        data = load_data(args.data, forest=forest, target=args.target)
-        X = data.X
-        notes = list(getattr(data, "notes", []) or [])
+    _warn_if_trusted(args)
+    native = load_native(args.model, trusted=args.trust)
+    forest = from_estimator(native)
+    data = load_data(args.data, forest=forest, target=args.target) if args.data else None
     print(f"{args.model}")
-    print(summarize(forest, X).text())
-    for note in notes:
-        _say(f"note: {note}", sys.stdout)
+    print(summarize(forest, None if data is None else data.X).text())
+    if data is not None:
+        print(f"Exactness  {check_exactness(forest, native, data.X).text()}")
+        for note in data.notes:
+            _say(f"note: {note}", sys.stdout)
     return 0
 
 

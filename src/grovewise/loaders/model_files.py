@@ -12,10 +12,9 @@ import json
 import zipfile
 from pathlib import Path
 
-from ..errors import GrovewiseError, ModelFileError, UnsafeModelError
+from ..errors import ModelFileError, UnsafeModelError
 from ..forest import Forest
 from .estimators import from_estimator
-from .xgboost_models import forest_from_xgboost_json
 
 XGBOOST_SUFFIXES = (".json", ".ubj")
 SKOPS_SUFFIXES = (".skops",)
@@ -65,6 +64,16 @@ def load_model(path, *, trusted: bool = False) -> Forest:
     UnsupportedModelError
         A readable model of a kind or variant Grovewise cannot reproduce exactly.
     """
+    forest = from_estimator(load_native(path, trusted=trusted))
+    forest.source["file"] = str(Path(path))
+    return forest
+
+
+def load_native(path, *, trusted: bool = False):
+    """Read a model file into the library's own object (an estimator or an XGBoost Booster).
+
+    The same checks and errors as :func:`load_model`, which converts what this returns.
+    """
     p = Path(path)
     suffix = p.suffix.lower()
     if suffix not in SUFFIXES:
@@ -87,7 +96,7 @@ def load_model(path, *, trusted: bool = False) -> Forest:
     return _load_xgboost(p)
 
 
-def _load_xgboost(p: Path) -> Forest:
+def _load_xgboost(p: Path):
     import xgboost
 
     if p.suffix.lower() == ".json":
@@ -106,12 +115,10 @@ def _load_xgboost(p: Path) -> Forest:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise ModelFileError(f"{p}: XGBoost could not read this file ({first[:200]}); it may be "
                              "damaged or truncated; save the model again with save_model.") from None
-    forest = forest_from_xgboost_json(json.loads(booster.save_raw("json")), where=str(p))
-    forest.source.update({"estimator": "Booster", "file": str(p)})
-    return forest
+    return booster
 
 
-def _load_skops(p: Path, trusted: bool) -> Forest:
+def _load_skops(p: Path, trusted: bool):
     import skops.io as sio
 
     try:
@@ -128,25 +135,17 @@ def _load_skops(p: Path, trusted: bool) -> Forest:
             "does not load them by default. Open it as trusted (--trust) only if you trust "
             "where the file comes from.")
     try:
-        est = sio.load(str(p), trusted=list(found))
-    except GrovewiseError:
-        raise
+        return sio.load(str(p), trusted=list(found))
     except Exception as exc:  # skops raises many kinds on damaged content
         raise ModelFileError(f"{p}: skops could not load the model ({type(exc).__name__}: "
                              f"{exc}); save it again with skops.io.dump.") from None
-    forest = from_estimator(est)
-    forest.source["file"] = str(p)
-    return forest
 
 
-def _load_pickle(p: Path) -> Forest:
+def _load_pickle(p: Path):
     import joblib
 
     try:
-        est = joblib.load(p)
+        return joblib.load(p)
     except Exception as exc:  # any unpickling failure
         raise ModelFileError(f"{p}: the pickle/joblib file could not be read ({type(exc).__name__}: "
                              f"{exc}); it may be damaged or written by other library versions.") from None
-    forest = from_estimator(est)
-    forest.source["file"] = str(p)
-    return forest
