@@ -1,0 +1,151 @@
+"""Results to JSON plus arrays and back, without pickle.
+
+A review's results are Grovewise's own dataclasses (and a few of its own objects, such as the
+fitted surrogate) holding numbers, strings and numpy arrays. :func:`encode` turns such a value
+into a JSON-ready tree and a dict of arrays (saved as ``.npz`` with ``allow_pickle=False``);
+:func:`decode` rebuilds the same objects. Only classes defined inside the ``grovewise``
+package are rebuilt, so a hostile results file cannot make Grovewise import or run anything
+else.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import importlib
+import math
+from pathlib import Path, PurePath
+from typing import Any
+
+import numpy as np
+
+from .errors import GrovewiseError
+
+PACKAGE = "grovewise"
+
+
+class StorageError(GrovewiseError):
+    """A saved results file is damaged or names something Grovewise does not rebuild."""
+
+
+def _type_name(cls: type) -> str:
+    return f"{cls.__module__}:{cls.__qualname__}"
+
+
+def _resolve(name: str) -> type:
+    module, _, qualname = name.partition(":")
+    if not (module == PACKAGE or module.startswith(PACKAGE + ".")):
+        raise StorageError(f"saved results name the type {name!r}, which is not one of "
+                           "Grovewise's own; the file was not written by Grovewise.")
+    try:
+        obj: Any = importlib.import_module(module)
+        for part in qualname.split("."):
+            obj = getattr(obj, part)
+    except (ImportError, AttributeError):
+        raise StorageError(f"saved results name the type {name!r}, which this version of "
+                           "Grovewise does not have; open them with the version that saved "
+                           "them, or run the review again.") from None
+    if not isinstance(obj, type):
+        raise StorageError(f"saved results name {name!r}, which is not a type.")
+    return obj
+
+
+class _Encoder:
+    def __init__(self) -> None:
+        self.arrays: dict[str, np.ndarray] = {}
+
+    def array(self, a: np.ndarray) -> dict:
+        if a.dtype == object:
+            try:
+                a = a.astype(str) if all(isinstance(v, str) for v in a.ravel()) else a.astype(float)
+            except (TypeError, ValueError):
+                raise StorageError("an array of mixed objects cannot be saved") from None
+        key = f"a{len(self.arrays)}"
+        self.arrays[key] = a
+        return {"__array__": key}
+
+    def __call__(self, obj: Any) -> Any:
+        if obj is None or isinstance(obj, (bool, str, int)) and not isinstance(obj, np.generic):
+            return obj
+        if isinstance(obj, float):
+            return obj if math.isfinite(obj) else {"__float__": repr(obj)}
+        if isinstance(obj, np.generic):
+            return self(obj.item())
+        if isinstance(obj, np.ndarray):
+            return self.array(obj)
+        if isinstance(obj, PurePath):
+            return {"__path__": str(obj)}
+        if isinstance(obj, tuple):
+            return {"__tuple__": [self(v) for v in obj]}
+        if isinstance(obj, list):
+            return [self(v) for v in obj]
+        if isinstance(obj, dict):
+            if all(isinstance(k, str) for k in obj):
+                return {"__map__": {k: self(v) for k, v in obj.items()}}
+            return {"__pairs__": [[self(k), self(v)] for k, v in obj.items()]}
+        cls = type(obj)
+        if not cls.__module__.startswith(PACKAGE):
+            raise StorageError(f"{_type_name(cls)} is not one of Grovewise's own types and "
+                               "cannot be saved with the results.")
+        if dataclasses.is_dataclass(obj):
+            state = {f.name: getattr(obj, f.name) for f in dataclasses.fields(obj)}
+        else:
+            state = {k: v for k, v in vars(obj).items() if not k.startswith("__")}
+        return {"__type__": _type_name(cls), "state": {k: self(v) for k, v in state.items()}}
+
+
+def encode(obj: Any) -> tuple[Any, dict[str, np.ndarray]]:
+    """``obj`` as (a JSON-ready tree, the arrays it refers to by key)."""
+    enc = _Encoder()
+    tree = enc(obj)
+    return tree, enc.arrays
+
+
+def decode(tree: Any, arrays: dict[str, np.ndarray]) -> Any:
+    """Rebuild what :func:`encode` produced."""
+    if isinstance(tree, list):
+        return [decode(v, arrays) for v in tree]
+    if not isinstance(tree, dict):
+        return tree
+    if "__array__" in tree:
+        try:
+            return np.asarray(arrays[tree["__array__"]])
+        except KeyError:
+            raise StorageError(f"saved results refer to array {tree['__array__']!r}, which is "
+                               "missing from the arrays file.") from None
+    if "__float__" in tree:
+        return float(tree["__float__"])
+    if "__path__" in tree:
+        return Path(tree["__path__"])
+    if "__tuple__" in tree:
+        return tuple(decode(v, arrays) for v in tree["__tuple__"])
+    if "__map__" in tree:
+        return {k: decode(v, arrays) for k, v in tree["__map__"].items()}
+    if "__pairs__" in tree:
+        return {_hashable(decode(k, arrays)): decode(v, arrays) for k, v in tree["__pairs__"]}
+    if "__type__" in tree:
+        cls = _resolve(tree["__type__"])
+        obj = cls.__new__(cls)
+        obj.__dict__.update({k: decode(v, arrays) for k, v in tree["state"].items()})
+        return obj
+    raise StorageError("saved results hold an entry Grovewise does not recognise; the file "
+                       "may be damaged.")
+
+
+def _hashable(v: Any) -> Any:
+    return tuple(v) if isinstance(v, list) else v
+
+
+def save_arrays(path: Path, arrays: dict[str, np.ndarray]) -> None:
+    """Write ``arrays`` as an uncompressed ``.npz`` (no pickled objects)."""
+    with open(path, "wb") as fh:
+        np.savez(fh, **arrays)
+
+
+def load_arrays(path: Path) -> dict[str, np.ndarray]:
+    """Read a ``.npz`` written by :func:`save_arrays`, refusing pickled objects."""
+    try:
+        with np.load(path, allow_pickle=False) as data:
+            return {k: data[k] for k in data.files}
+    except (OSError, ValueError) as exc:
+        raise StorageError(f"{path}: the arrays file could not be read ({exc}); it may be "
+                           "damaged; run the review again.") from None
