@@ -54,6 +54,10 @@ def _library_outputs(native, X: np.ndarray, feature_names: list[str] | None):
         else:
             leaves = None
         return proba, np.argmax(proba, axis=1), leaves
+    if feature_names is not None:  # the estimator was fit on a table with these columns
+        import pandas as pd
+
+        X = pd.DataFrame(X, columns=feature_names)
     proba = native.predict_proba(X)
     leaves = native.apply(X).reshape(X.shape[0], -1) if hasattr(native, "apply") else None
     return proba, np.argmax(proba, axis=1), leaves

@@ -1,0 +1,468 @@
+"""A Review: one review's inputs, settings, results and sign-off; runs the steps; saves and opens.
+
+The same object drives the command line, the window and the report. Each step stores a plain
+result object; a saved review (a folder with ``review.json`` and an arrays file) reopens
+with identical results and nothing recomputed.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import os
+import threading
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+
+from .errors import GrovewiseError, SettingError
+from .forest import Forest
+from .loaders import Dataset, from_estimator, load_data, load_native
+from .loaders.exactness import ExactnessCheck, check_exactness
+from .storage import StorageError, decode, encode, load_arrays, save_arrays
+from .summary import ModelSummary, summarize
+
+STEPS = ("intake", "anatomy", "proximity", "surrogate", "cases")
+REQUIRES = {"intake": (), "anatomy": ("intake",), "proximity": ("intake",),
+            "surrogate": ("intake",), "cases": ("intake", "surrogate")}
+DECISIONS = ("pending", "approve", "approve_with_conditions", "reject")
+DECISION_LABELS = {"pending": "not yet decided", "approve": "approve",
+                   "approve_with_conditions": "approve with conditions", "reject": "reject"}
+REVIEW_FILE = "review.json"
+FORMAT = "grovewise-review/1"
+PROXIMITY_MAX_ROWS = 3000  # proximity is quadratic in rows: larger data is sampled (seeded)
+PAIRS_KEPT = 2000  # closest pairs kept with the results for the Proximity page and report
+
+Progress = Callable[[str, float, str], None]  # (step, fraction 0..1, message)
+
+
+class CancelledError(GrovewiseError):
+    """The user cancelled a step; earlier results are kept."""
+
+
+def sha256_of(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+@dataclass
+class ReviewInputs:
+    """What is reviewed: the model file, the review data, and how the holdout is made."""
+
+    model: Path
+    data: Path
+    target: str | None = None
+    holdout: Path | None = None
+    trusted: bool = False
+
+    def __post_init__(self) -> None:
+        self.model = Path(self.model)
+        self.data = Path(self.data)
+        self.holdout = None if self.holdout in (None, "") else Path(self.holdout)
+
+
+@dataclass
+class ReviewSettings:
+    """Every setting of a review; the manifest records them all.
+
+    ``max_features_per_split`` and ``alpha`` default to values that keep rules readable
+    (at most two features per split, a small price per feature used).
+    """
+
+    depth: int = 2
+    max_features_per_split: int | None = 2
+    alpha: float = 0.01
+    proximity_threshold: float = 0.9
+    time_limit: float = 60.0
+    node_limit: int | None = None
+    holdout_share: float = 0.3
+    seed: int = 0
+    flags: dict[str, str] = field(default_factory=dict)
+    permutation_repeats: int = 5
+
+    def validate(self) -> "ReviewSettings":
+        """Raise a SettingError naming the first setting out of range."""
+        checks = [
+            ("depth", isinstance(self.depth, (int, np.integer)) and 1 <= self.depth <= 4,
+             "a whole number from 1 to 4"),
+            ("max_features_per_split", self.max_features_per_split is None or (
+                isinstance(self.max_features_per_split, (int, np.integer))
+                and self.max_features_per_split >= 1), "a whole number of at least 1, or none"),
+            ("alpha", float(self.alpha) >= 0, "zero or more"),
+            ("proximity_threshold", 0 < float(self.proximity_threshold) <= 1,
+             "above 0 and at most 1"),
+            ("time_limit", float(self.time_limit) > 0, "more than 0 seconds"),
+            ("node_limit", self.node_limit is None or int(self.node_limit) >= 1,
+             "a whole number of at least 1, or none"),
+            ("holdout_share", 0 <= float(self.holdout_share) < 0.9, "from 0 to below 0.9"),
+            ("seed", isinstance(self.seed, (int, np.integer)) and self.seed >= 0,
+             "a whole number of 0 or more"),
+            ("permutation_repeats", int(self.permutation_repeats) >= 1, "at least 1"),
+        ]
+        for name, ok, what in checks:
+            if not ok:
+                raise SettingError(f"setting {name}={getattr(self, name)!r} is out of range; "
+                                   f"give {what}.")
+        return self
+
+
+@dataclass
+class Reviewer:
+    """The sign-off: who reviewed, what they decided, on which conditions, and notes."""
+
+    name: str = ""
+    role: str = ""
+    decision: str = "pending"
+    conditions: str = ""
+    notes: str = ""
+    signed_at: str = ""
+
+    def validate(self) -> "Reviewer":
+        if self.decision not in DECISIONS:
+            raise SettingError(f"decision {self.decision!r} is not known; use one of "
+                               f"{', '.join(DECISIONS)}.")
+        if self.decision == "approve_with_conditions" and not self.conditions.strip():
+            raise SettingError("the decision 'approve with conditions' needs the conditions "
+                               "written out; fill in the conditions.")
+        return self
+
+
+@dataclass
+class IntakeResult:
+    """The files, their hashes, the model summary and the exactness proof."""
+
+    model_sha256: str
+    data_sha256: str
+    holdout_sha256: str | None
+    summary: ModelSummary
+    exactness: ExactnessCheck
+    data_summary: dict
+    notes: list[str]
+    train_rows: np.ndarray  # indices into the review data used to fit the surrogate
+    holdout_rows: np.ndarray  # indices held out (empty when a holdout file is given)
+    holdout_source: str  # "split", "file" or "none"
+
+
+@dataclass
+class AnatomyResult:
+    """How the ensemble uses its features."""
+
+    depth_usage: dict  # weight name -> DepthUsage
+    position_usage: object  # PositionUsage
+    thresholds: object  # ThresholdProfiles
+    importance: object  # ImportanceComparison
+    flags: object  # FlagReport
+    per_class: list | None = None  # DepthUsage per class for multi-class boosting
+
+
+@dataclass
+class ProximityResult:
+    """Which samples the ensemble treats alike (Breiman's proximity)."""
+
+    threshold: float
+    definition: str
+    rows: np.ndarray  # the review-data rows proximity was computed on
+    counts: object  # PairCounts
+    pairs: object  # ProximityPairs at the threshold, closest first, at most PAIRS_KEPT
+    n_pairs_at_threshold: int
+
+
+@dataclass
+class CasesResult:
+    """Row by row: the ensemble's answer, the surrogate's and the greedy tree's."""
+
+    proba: np.ndarray
+    ensemble: np.ndarray  # class index
+    surrogate: np.ndarray
+    surrogate_leaf: np.ndarray
+    greedy: np.ndarray
+    split: np.ndarray  # 0 train, 1 holdout (review data), 2 holdout file
+    disagreements: np.ndarray  # row indices where the surrogate differs from the ensemble
+
+    @property
+    def agreement(self) -> float:
+        return float(np.mean(self.surrogate == self.ensemble)) if self.ensemble.size else 1.0
+
+
+class Review:
+    """One review: inputs, settings, results of every step, and the reviewer's sign-off."""
+
+    def __init__(self, inputs: ReviewInputs, settings: ReviewSettings | None = None,
+                 reviewer: Reviewer | None = None) -> None:
+        self.inputs = inputs
+        self.settings = (settings or ReviewSettings()).validate()
+        self.reviewer = reviewer or Reviewer()
+        self.forest: Forest | None = None
+        self.data: Dataset | None = None
+        self.holdout_data: Dataset | None = None
+        self.results: dict[str, object] = {}
+        self.timings: dict[str, float] = {}
+        self.created_at = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+        self._lock = threading.Lock()
+
+    # ------------------------------------------------------------------ access
+    @property
+    def intake(self) -> IntakeResult | None:
+        return self.results.get("intake")
+
+    @property
+    def anatomy(self) -> AnatomyResult | None:
+        return self.results.get("anatomy")
+
+    @property
+    def proximity(self) -> ProximityResult | None:
+        return self.results.get("proximity")
+
+    @property
+    def surrogate(self):
+        """The surrogate step's result (``mimic``'s result object)."""
+        return self.results.get("surrogate")
+
+    @property
+    def cases(self) -> CasesResult | None:
+        return self.results.get("cases")
+
+    def done(self, step: str) -> bool:
+        return step in self.results
+
+    # ------------------------------------------------------------------ running
+    def run(self, steps=STEPS, progress: Progress | None = None,
+            cancel: threading.Event | None = None) -> "Review":
+        """Run ``steps`` in order. A failing or cancelled step leaves earlier results intact."""
+        for step in steps:
+            if step not in STEPS:
+                raise SettingError(f"step {step!r} is not known; steps: {', '.join(STEPS)}")
+            if cancel is not None and cancel.is_set():
+                raise CancelledError(f"cancelled before the {step} step; earlier results kept.")
+            self.run_step(step, progress=progress, cancel=cancel)
+        return self
+
+    def run_step(self, step: str, progress: Progress | None = None,
+                 cancel: threading.Event | None = None) -> object:
+        from time import perf_counter
+
+        report = progress or (lambda *_: None)
+        missing = [s for s in REQUIRES[step] if s not in self.results]
+        if missing:
+            raise SettingError(f"the {step} step needs the {', '.join(missing)} step first.")
+        report(step, 0.0, f"{step}: starting")
+        start = perf_counter()
+        runner = getattr(self, f"_run_{step}")
+        result = runner(report, cancel) if step == "surrogate" else runner(report)
+        with self._lock:
+            self.results[step] = result
+            self.timings[step] = perf_counter() - start
+            if step == "intake":  # new inputs: later results no longer apply
+                for later in STEPS[1:]:
+                    self.results.pop(later, None)
+        report(step, 1.0, f"{step}: done in {self.timings[step]:.1f} s")
+        return result
+
+    def _run_intake(self, report: Progress) -> IntakeResult:
+        inp, st = self.inputs, self.settings
+        native = load_native(inp.model, trusted=inp.trusted)
+        forest = from_estimator(native)
+        report("intake", 0.3, "model read; reading the review data")
+        data = load_data(inp.data, forest=forest, target=inp.target)
+        holdout = None
+        if inp.holdout is not None:
+            holdout = load_data(inp.holdout, forest=forest, target=inp.target)
+        report("intake", 0.6, "checking the predictions against the library's own")
+        exactness = check_exactness(forest, native, data.X)
+        if not exactness.passed:
+            raise GrovewiseError(f"{inp.model}: Grovewise does not reproduce this model's "
+                                 f"predictions on {inp.data}: {exactness.text()}. The review "
+                                 "stops here; report the model type and library versions.")
+        train, held = self._split(forest, data.X, holdout is None)
+        from .analysis.flags import check_flags
+
+        st.flags = check_flags(forest.feature_names, st.flags)
+        self.forest, self.data, self.holdout_data = forest, data, holdout
+        return IntakeResult(
+            model_sha256=sha256_of(inp.model), data_sha256=data.sha256,
+            holdout_sha256=None if holdout is None else holdout.sha256,
+            summary=summarize(forest, data.X), exactness=exactness,
+            data_summary=data.to_dict(), notes=list(data.notes),
+            train_rows=train, holdout_rows=held,
+            holdout_source="file" if holdout is not None else
+            ("split" if held.size else "none"))
+
+    def _split(self, forest: Forest, X: np.ndarray, split: bool) -> tuple[np.ndarray, np.ndarray]:
+        """Train and holdout rows, stratified by the ensemble's predicted class (seeded)."""
+        n = X.shape[0]
+        share = self.settings.holdout_share
+        if not split or share == 0 or n < 10:
+            return np.arange(n), np.zeros(0, dtype=np.int64)
+        rng = np.random.default_rng(self.settings.seed)
+        yhat = forest.predict_index(X)
+        held = []
+        for k in np.unique(yhat):
+            rows = np.flatnonzero(yhat == k)
+            take = int(round(share * rows.size))
+            held.append(rng.permutation(rows)[:take])
+        held_rows = np.sort(np.concatenate(held)).astype(np.int64)
+        train = np.setdiff1d(np.arange(n), held_rows).astype(np.int64)
+        return train, held_rows
+
+    def _run_anatomy(self, report: Progress) -> AnatomyResult:
+        from .analysis.flags import flag_report
+        from .analysis.importance import (importance_comparison, impurity_importance,
+                                          permutation_importance_result)
+        from .analysis.thresholds import threshold_profiles
+        from .analysis.usage import depth_usage, position_usage
+
+        forest, X, st = self.forest, self.data.X, self.settings
+        usage = {w: depth_usage(forest, weight=w) for w in ("count", "gain", "cover")}
+        per_class = depth_usage(forest, per_class=True) if forest.n_outputs > 1 and \
+            forest.link == "softmax" else None
+        report("anatomy", 0.2, "permutation importance on the review data")
+        perm = permutation_importance_result(forest, X, y=None, n_repeats=st.permutation_repeats,
+                                             random_state=st.seed)
+        impurity = impurity_importance(forest)
+        comparison = importance_comparison(impurity, perm)
+        return AnatomyResult(
+            depth_usage=usage, position_usage=position_usage(forest, max_depth=3),
+            thresholds=threshold_profiles(forest, X), importance=comparison,
+            flags=flag_report(forest, st.flags, comparison), per_class=per_class)
+
+    def _run_proximity(self, report: Progress) -> ProximityResult:
+        from .analysis.proximity import definition, pairs_above_thresholds, proximity_pairs
+
+        X, st = self.data.X, self.settings
+        n = X.shape[0]
+        rows = np.arange(n)
+        if n > PROXIMITY_MAX_ROWS:
+            rng = np.random.default_rng(st.seed)
+            rows = np.sort(rng.choice(n, PROXIMITY_MAX_ROWS, replace=False))
+        Xp = X[rows]
+        counts = pairs_above_thresholds(self.forest, Xp)
+        report("proximity", 0.5, "pairs at the threshold")
+        pairs = proximity_pairs(self.forest, Xp, st.proximity_threshold)
+        n_pairs = len(pairs)
+        if n_pairs > PAIRS_KEPT:
+            keep = np.sort(np.argsort(-pairs.p, kind="stable")[:PAIRS_KEPT])
+            pairs = replace(pairs, i=pairs.i[keep], j=pairs.j[keep], p=pairs.p[keep])
+        return ProximityResult(threshold=float(st.proximity_threshold),
+                               definition=definition(self.forest), rows=rows, counts=counts,
+                               pairs=pairs, n_pairs_at_threshold=n_pairs)
+
+    def _run_surrogate(self, report: Progress, cancel: threading.Event | None):
+        from .surrogate import mimic
+
+        st, X = self.settings, self.data.X
+        intake = self.intake
+        holdout = (self.holdout_data.X if self.holdout_data is not None
+                   else X[intake.holdout_rows] if intake.holdout_rows.size else None)
+        forbidden = [f for f, kind in st.flags.items() if kind == "forbidden"]
+
+        def on_progress(info) -> None:
+            report("surrogate", float(getattr(info, "fraction", 0.5)), str(info))
+
+        return mimic(self.forest, X[intake.train_rows], depth=st.depth,
+                     proximity_threshold=st.proximity_threshold, holdout=holdout,
+                     max_features_per_split=st.max_features_per_split, alpha=st.alpha,
+                     time_limit=st.time_limit, node_limit=st.node_limit,
+                     random_state=st.seed, forbidden_features=forbidden,
+                     progress=on_progress, cancel=cancel)
+
+    def _run_cases(self, report: Progress) -> CasesResult:
+        X = self.data.X
+        parts = [X] if self.holdout_data is None else [X, self.holdout_data.X]
+        allX = np.vstack(parts)
+        split = np.zeros(allX.shape[0], dtype=np.int64)
+        split[self.intake.holdout_rows] = 1
+        if self.holdout_data is not None:
+            split[X.shape[0]:] = 2
+        proba = self.forest.predict_proba(allX)
+        ensemble = np.argmax(proba, axis=1)
+        sur = self.surrogate.surrogate
+        surrogate = np.asarray(sur.predict_index(allX))
+        return CasesResult(proba=proba, ensemble=ensemble, surrogate=surrogate,
+                           surrogate_leaf=np.asarray(sur.apply(allX)),
+                           greedy=np.asarray(self.surrogate.greedy.predict_index(allX)),
+                           split=split, disagreements=np.flatnonzero(surrogate != ensemble))
+
+    def case_rows(self) -> np.ndarray:
+        """Every row of the review data (and holdout file), in the Cases order."""
+        if self.holdout_data is None:
+            return self.data.X
+        return np.vstack([self.data.X, self.holdout_data.X])
+
+    # ------------------------------------------------------------------ saving
+    def _state(self) -> dict:
+        return {
+            "format": FORMAT,
+            "created_at": self.created_at,
+            "inputs": self.inputs,
+            "settings": self.settings,
+            "reviewer": self.reviewer,
+            "forest": self.forest,
+            "data": self.data,
+            "holdout_data": self.holdout_data,
+            "results": self.results,
+            "timings": self.timings,
+        }
+
+    def save(self, folder) -> Path:
+        """Save to ``folder`` (created if needed). The write is atomic: a crash midway leaves
+        the previously saved review as it was."""
+        folder = Path(folder)
+        folder.mkdir(parents=True, exist_ok=True)
+        tree, arrays = encode(self._state())
+        arrays_tmp = folder / f".arrays-{os.getpid()}-{threading.get_ident()}.npz.tmp"
+        save_arrays(arrays_tmp, arrays)
+        digest = sha256_of(arrays_tmp)
+        arrays_name = f"arrays-{digest[:16]}.npz"
+        os.replace(arrays_tmp, folder / arrays_name)
+        doc = {"format": FORMAT, "arrays": arrays_name, "arrays_sha256": digest, "state": tree}
+        text = json.dumps(doc, indent=1, allow_nan=False)
+        json_tmp = folder / f".{REVIEW_FILE}-{os.getpid()}.tmp"
+        json_tmp.write_text(text, encoding="utf-8")
+        os.replace(json_tmp, folder / REVIEW_FILE)  # the commit point
+        for old in folder.glob("arrays-*.npz"):
+            if old.name != arrays_name:
+                old.unlink(missing_ok=True)
+        return folder / REVIEW_FILE
+
+    @classmethod
+    def open(cls, folder) -> "Review":
+        """Reopen a review saved with :meth:`save`; nothing is recomputed."""
+        folder = Path(folder)
+        path = folder / REVIEW_FILE if folder.is_dir() else folder
+        folder = path.parent
+        try:
+            doc = json.loads(path.read_text(encoding="utf-8"))
+        except FileNotFoundError:
+            raise StorageError(f"{path}: no saved review here; choose the folder a review was "
+                               "saved to.") from None
+        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raise StorageError(f"{path}: not a readable saved review ({exc}).") from None
+        if not isinstance(doc, dict) or doc.get("format") != FORMAT:
+            raise StorageError(f"{path}: not a Grovewise review file (format "
+                               f"{doc.get('format') if isinstance(doc, dict) else None!r}).")
+        arrays_path = folder / doc["arrays"]
+        if not arrays_path.is_file() or sha256_of(arrays_path) != doc["arrays_sha256"]:
+            raise StorageError(f"{arrays_path}: the arrays file is missing or does not match "
+                               f"{path}; the saved review is incomplete.")
+        state = decode(doc["state"], load_arrays(arrays_path))
+        review = cls.__new__(cls)
+        review.inputs = state["inputs"]
+        review.settings = state["settings"]
+        review.reviewer = state["reviewer"]
+        review.forest = state["forest"]
+        review.data = state["data"]
+        review.holdout_data = state["holdout_data"]
+        review.results = state["results"]
+        review.timings = state["timings"]
+        review.created_at = state["created_at"]
+        review._lock = threading.Lock()
+        return review
+
+    def settings_dict(self) -> dict:
+        return asdict(self.settings)
