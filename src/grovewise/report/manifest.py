@@ -1,0 +1,141 @@
+"""The manifest: what anyone needs to re-run a review and check that it gives the same answer.
+
+It records the files' sha256, every setting and seed, the library versions, the solver's
+certificate and a digest of each step's results. Digests cover what a step concluded, not
+how long it took, so a deterministic re-run gives the same digests byte for byte.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import platform
+import sys
+from dataclasses import asdict, is_dataclass
+from importlib import metadata
+
+import numpy as np
+
+from ..storage import encode
+
+FORMAT = "grovewise-manifest/1"
+LIBRARIES = ("grovewise", "numpy", "scipy", "scikit-learn", "xgboost", "xgboost-cpu", "pyomo",
+             "highspy", "numba", "skops", "pandas", "pyarrow", "matplotlib")
+# Keys whose values are timings or clock readings: left out of digests.
+TIMING_KEYS = frozenset({"time", "seconds", "elapsed", "wall_time", "build_time", "solve_time",
+                         "time_to_first", "timings", "started_at", "finished_at", "trace"})
+
+
+def library_versions() -> dict[str, str]:
+    """Versions of Python, HiGHS and the libraries a review's numbers depend on."""
+    versions = {"python": platform.python_version(), "platform": sys.platform}
+    for name in LIBRARIES:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            continue
+    try:
+        import highspy
+
+        h = highspy.Highs()
+        versions["HiGHS"] = f"{h.versionMajor()}.{h.versionMinor()}.{h.versionPatch()}"
+    except Exception:  # an old highspy without version calls
+        pass
+    return versions
+
+
+def _strip_timings(tree):
+    if isinstance(tree, dict):
+        return {k: _strip_timings(v) for k, v in tree.items() if k not in TIMING_KEYS}
+    if isinstance(tree, list):
+        return [_strip_timings(v) for v in tree]
+    return tree
+
+
+def digest(obj) -> str:
+    """sha256 of a result's content (timings left out), stable across runs and machines."""
+    tree, arrays = encode(obj)
+    tree = _strip_timings(tree)
+    h = hashlib.sha256(json.dumps(tree, sort_keys=True, separators=(",", ":")).encode())
+    used = set()
+    _collect_array_keys(tree, used)
+    for key in sorted(used, key=lambda k: int(k[1:])):
+        a = np.ascontiguousarray(arrays[key])
+        h.update(f"{a.dtype.str}{a.shape}".encode())
+        h.update(a.tobytes())
+    return h.hexdigest()
+
+
+def _collect_array_keys(tree, out: set) -> None:
+    if isinstance(tree, dict):
+        if "__array__" in tree:
+            out.add(tree["__array__"])
+        for v in tree.values():
+            _collect_array_keys(v, out)
+    elif isinstance(tree, list):
+        for v in tree:
+            _collect_array_keys(v, out)
+
+
+def _plain(obj):
+    if is_dataclass(obj):
+        obj = asdict(obj)
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if hasattr(obj, "__fspath__"):
+        return str(obj)
+    if isinstance(obj, float) and not np.isfinite(obj):
+        return None
+    return obj
+
+
+def build_manifest(review, report_files: dict | None = None) -> dict:
+    """The manifest of a review that has run (a ``grovewise.review.Review``)."""
+    from .. import __version__
+
+    inp, st = review.inputs, review.settings
+    intake = review.intake
+
+    def file_entry(path, sha):
+        return None if path is None else {"path": str(path), "sha256": sha}
+
+    surrogate = review.surrogate
+    certificate = _plain(getattr(surrogate, "certificate", None)) if surrogate else None
+    return {
+        "format": FORMAT,
+        "created_at": review.created_at,
+        "grovewise": __version__,
+        "inputs": {
+            "model": file_entry(inp.model, intake.model_sha256 if intake else None),
+            "data": file_entry(inp.data, intake.data_sha256 if intake else None),
+            "holdout": file_entry(inp.holdout, intake.holdout_sha256 if intake else None),
+            "target": inp.target,
+            "trusted": inp.trusted,
+        },
+        "settings": _plain(st),
+        "seeds": {"review": st.seed, "holdout_split": st.seed, "permutation_importance": st.seed,
+                  "proximity_sample": st.seed, "surrogate": st.seed},
+        "deterministic": deterministic(review),
+        "versions": library_versions(),
+        "certificate": certificate,
+        "fidelity": _plain(getattr(surrogate, "fidelity", None)) if surrogate else None,
+        "digests": {step: digest(result) for step, result in review.results.items()},
+        "reviewer": _plain(review.reviewer),
+        "report_files": report_files or {},
+    }
+
+
+def deterministic(review) -> bool:
+    """True when the solve was bounded by the node limit, not the clock, so a re-run on the
+    same machine and library versions gives the same tree."""
+    surrogate = review.surrogate
+    if review.settings.node_limit is None or surrogate is None:
+        return False
+    status = str(getattr(getattr(surrogate, "surrogate", None), "status_", ""))
+    return status not in ("time_limit", "cancelled")
