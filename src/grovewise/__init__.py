@@ -4,6 +4,8 @@ The public API (see the project's API contract): intake (``load_model``, ``from_
 ``load_data``), anatomy, proximity, the surrogate, and the review.
 """
 
+from .analysis import (depth_usage, impurity_importance, position_usage, proximity,
+                       proximity_pairs)
 from .errors import (DataError, GrovewiseError, ModelFileError, SettingError, UnsafeModelError,
                      UnsupportedModelError)
 from .forest import Forest, Tree
@@ -13,5 +15,7 @@ __version__ = "0.1.0"
 
 __all__ = [
     "DataError", "Dataset", "Forest", "GrovewiseError", "ModelFileError", "SettingError", "Tree",
-    "UnsafeModelError", "UnsupportedModelError", "from_estimator", "load_data", "load_model", "__version__",
+    "UnsafeModelError", "UnsupportedModelError", "depth_usage", "from_estimator",
+    "impurity_importance", "load_data", "load_model", "position_usage", "proximity",
+    "proximity_pairs", "__version__",
 ]

@@ -11,6 +11,7 @@ import sys
 import textwrap
 import warnings
 from collections.abc import Sequence
+from pathlib import Path
 
 from .errors import GrovewiseError
 
@@ -48,6 +49,173 @@ def cmd_inspect(args) -> int:
     return 0
 
 
+def cmd_anatomy(args) -> int:
+    """Usage maps, importances, threshold profiles: figures and tables."""
+    from .loaders import load_data, load_model
+    from .report.anatomy_files import export_anatomy
+
+    _warn_if_trusted(args)
+    forest = load_model(args.model, trusted=args.trust)
+    data = load_data(args.data, forest=forest, target=args.target) if args.data else None
+    flags = _parse_flags(args.flag)
+    files = export_anatomy(forest, data, out_dir=args.out, flags=flags, dpi=args.dpi,
+                           formats=tuple(args.formats.split(",")), random_state=args.seed)
+    print(f"wrote {len(files)} files to {args.out}")
+    for f in files:
+        print(f"  {f}")
+    return 0
+
+
+class TerminalProgress:
+    """Progress of long steps on the terminal: one line per step, solver lines every ~2 s."""
+
+    def __init__(self, stream=None, every: float = 2.0) -> None:
+        self.stream = stream or sys.stderr
+        self.every = every
+        self._last = 0.0
+
+    def __call__(self, step: str, fraction: float, message: str) -> None:
+        import time
+
+        now = time.monotonic()
+        final = fraction <= 0.0 or fraction >= 1.0
+        if not final and now - self._last < self.every:
+            return
+        self._last = now
+        print(f"  [{step:>9}] {message}", file=self.stream, flush=True)
+
+
+def _settings_from(args):
+    from .review import ReviewSettings
+
+    return ReviewSettings(depth=args.depth, max_features_per_split=args.max_features_per_split,
+                          alpha=args.alpha, proximity_threshold=args.proximity_threshold,
+                          time_limit=args.time_limit, node_limit=args.node_limit,
+                          holdout_share=args.holdout_share, seed=args.seed,
+                          flags=_parse_flags(args.flag)).validate()
+
+
+def _run_review(inputs, settings, out: str, reviewer=None):
+    """Run every step with terminal progress, save the review and write the report."""
+    import time
+
+    from .report.content import export_report
+    from .review import Review
+
+    start = time.perf_counter()
+    review = Review(inputs, settings, reviewer)
+    review.run(progress=TerminalProgress())
+    folder = Path(out)
+    review.save(folder / "review")
+    files = export_report(review, folder)
+    sur = review.surrogate
+    fid = sur.fidelity
+    print(f"review of {inputs.model} on {inputs.data}: done in {time.perf_counter() - start:.1f} s")
+    print(f"  exactness     {review.intake.exactness.text()}")
+    print(f"  surrogate     fidelity {fid['surrogate']['train']:.3f} train, "
+          f"{_fmt_optional(fid['surrogate']['holdout'])} holdout "
+          f"({sur.certificate['status']}, winning stage {sur.winner})")
+    print(f"  greedy tree   fidelity {fid['greedy']['train']:.3f} train, "
+          f"{_fmt_optional(fid['greedy']['holdout'])} holdout")
+    for kind, path in files.items():
+        print(f"  {kind:<13} {path}")
+    print(f"  saved review  {folder / 'review'}")
+    return review, files
+
+
+def _fmt_optional(v) -> str:
+    return "n/a" if v is None else f"{v:.3f}"
+
+
+def cmd_review(args) -> int:
+    """The whole review: report and manifest."""
+    from .review import ReviewInputs, Reviewer
+
+    _warn_if_trusted(args)
+    inputs = ReviewInputs(args.model, args.data, target=args.target, holdout=args.holdout,
+                          trusted=args.trust)
+    reviewer = Reviewer(name=args.reviewer or "", role=args.role or "")
+    _run_review(inputs, _settings_from(args), args.out, reviewer)
+    return 0
+
+
+def cmd_demo(args) -> int:
+    """The review of the bundled sample; opens the window when a display exists."""
+    from .review import ReviewInputs
+    from .sample_data import sample_paths
+
+    paths = sample_paths()
+    inputs = ReviewInputs(paths["forest"], paths["data"], target=paths["target"])
+    review, files = _run_review(inputs, _settings_from(args), args.out)
+    if args.no_window:
+        return 0
+    from .app.launch import has_display, run_window
+
+    if not has_display():
+        print("no display found: the window was not opened (the report is written above).")
+        return 0
+    return run_window(review=review)
+
+
+def cmd_reproduce(args) -> int:
+    """Re-run a review from its manifest and compare."""
+    from .reproduce import reproduce
+
+    _say(f"re-running the review of {args.manifest} ...", sys.stdout)
+    verdict = reproduce(args.manifest, trusted=args.trust, progress=TerminalProgress())
+    print(verdict.text())
+    return 0 if verdict.passed else 1
+
+
+def cmd_window(args) -> int:
+    """The desktop window."""
+    from .app.launch import run_window
+
+    if not args.sample and not (args.model and args.data):
+        if args.model or args.data:
+            from .errors import SettingError
+
+            raise SettingError("give both MODEL and DATA, or --sample, or neither.")
+    return run_window(sample=args.sample, model=args.model, data=args.data,
+                      target=args.target, capture_dir=args.capture)
+
+
+def _add_solve_args(p: argparse.ArgumentParser) -> None:
+    from .review import ReviewSettings
+
+    d = ReviewSettings()
+    p.add_argument("--depth", type=int, default=d.depth, help=f"surrogate depth (default {d.depth})")
+    p.add_argument("--max-features-per-split", type=int, default=d.max_features_per_split,
+                   help=f"features per split at most (default {d.max_features_per_split})")
+    p.add_argument("--alpha", type=float, default=d.alpha,
+                   help=f"price per feature used, against fidelity (default {d.alpha})")
+    p.add_argument("--proximity-threshold", type=float, default=d.proximity_threshold,
+                   help=f"records this alike share a leaf (default {d.proximity_threshold})")
+    p.add_argument("--time-limit", type=float, default=d.time_limit,
+                   help=f"seconds for the whole surrogate fit (default {d.time_limit:g})")
+    p.add_argument("--node-limit", type=int, default=d.node_limit,
+                   help="branch-and-bound nodes at most: makes the solve reproducible exactly")
+    p.add_argument("--holdout-share", type=float, default=d.holdout_share,
+                   help=f"share of rows held out to measure fidelity (default {d.holdout_share})")
+    p.add_argument("--seed", type=int, default=d.seed, help=f"seed of every random step (default {d.seed})")
+    p.add_argument("--flag", action="append", metavar="FEATURE=KIND",
+                   help="mark a feature protected or forbidden (repeatable)")
+
+
+def _parse_flags(items) -> dict[str, str]:
+    """``--flag NAME=protected`` (or forbidden), repeated."""
+    from .errors import SettingError
+
+    flags = {}
+    for item in items or []:
+        name, sep, kind = item.rpartition("=")
+        if not sep or not name:
+            raise SettingError(f"--flag {item!r}: write it as FEATURE=protected or "
+                               "FEATURE=forbidden.")
+        flags[name] = kind
+    return flags
+
+
 def _add_model_args(p: argparse.ArgumentParser, data: str | None = "optional") -> None:
     p.add_argument("model", metavar="MODEL", help="model file (.json, .ubj, .skops; "
                    ".pkl/.joblib only with --trust)")
@@ -72,6 +240,49 @@ def build_parser() -> argparse.ArgumentParser:
     _add_model_args(p)
     p.add_argument("--target", help="name of the target column in DATA, if it has one")
     p.set_defaults(func=cmd_inspect)
+
+    p = sub.add_parser("anatomy", help="usage maps, importances, figures and tables")
+    _add_model_args(p)
+    p.add_argument("--target", help="name of the target column in DATA, if it has one")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for figures and tables")
+    p.add_argument("--flag", action="append", metavar="FEATURE=KIND",
+                   help="mark a feature protected or forbidden (repeatable)")
+    p.add_argument("--dpi", type=float, default=150, help="resolution of PNG figures")
+    p.add_argument("--formats", default="png,svg", help="figure formats, comma-separated")
+    p.add_argument("--seed", type=int, default=0, help="seed of permutation importance")
+    p.set_defaults(func=cmd_anatomy)
+
+    p = sub.add_parser("review", help="the whole review: report, manifest")
+    _add_model_args(p, data="required")
+    p.add_argument("--target", help="name of the target column in DATA, if it has one")
+    p.add_argument("--holdout", metavar="FILE", help="a separate holdout data file")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for the report")
+    p.add_argument("--reviewer", help="the reviewer's name, for the report")
+    p.add_argument("--role", help="the reviewer's role, for the report")
+    _add_solve_args(p)
+    p.set_defaults(func=cmd_review)
+
+    p = sub.add_parser("demo", help="the review of the bundled sample")
+    p.add_argument("--out", default="grovewise_demo", metavar="DIR",
+                   help="folder for the report (default grovewise_demo)")
+    p.add_argument("--no-window", action="store_true", help="do not open the window")
+    _add_solve_args(p)
+    p.set_defaults(func=cmd_demo)
+
+    p = sub.add_parser("reproduce", help="re-run a review and say whether it matches")
+    p.add_argument("manifest", metavar="MANIFEST", help="the manifest.json of a review")
+    p.add_argument("--trust", action="store_true",
+                   help="allow a review whose model was opened as trusted")
+    p.set_defaults(func=cmd_reproduce)
+
+    p = sub.add_parser("window", help="the desktop window")
+    p.add_argument("model", metavar="MODEL", nargs="?", help="model file")
+    p.add_argument("data", metavar="DATA", nargs="?", help="review data")
+    p.add_argument("--sample", action="store_true", help="open the bundled sample")
+    p.add_argument("--target", help="name of the target column in DATA")
+    p.add_argument("--capture", metavar="DIR",
+                   help="go through every page, save one PNG per page there, and exit")
+    p.set_defaults(func=cmd_window)
     return parser
 
 

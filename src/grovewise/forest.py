@@ -177,7 +177,8 @@ class Forest:
                             f"{', ...' if self.n_features > 5 else ''}); give one column per feature")
         return arr
 
-    def _compare_input(self, X: np.ndarray) -> np.ndarray:
+    def compare_input(self, X: np.ndarray) -> np.ndarray:
+        """``X`` as the model's comparisons see it (float32-rounded where the library rounds)."""
         if self.compare == COMPARE_LE_FLOAT64:
             return X
         return X.astype(np.float32).astype(np.float64)
@@ -206,7 +207,7 @@ class Forest:
     def _leaf_nodes(self, X: np.ndarray) -> np.ndarray:
         """Global node index of the leaf each row reaches in each tree, shape (n, n_trees)."""
         flat = self._flat
-        Xc = np.ascontiguousarray(self._compare_input(X))
+        Xc = np.ascontiguousarray(self.compare_input(X))
         return leaf_nodes(Xc, flat["feature"], flat["threshold"], flat["left"], flat["right"],
                           flat["missing_left"], flat["offsets"],
                           self.compare == COMPARE_LT_FLOAT32)

@@ -14,7 +14,8 @@ from pathlib import Path
 
 from .errors import GrovewiseError
 from .report.manifest import FORMAT, build_manifest
-from .review import Review, ReviewInputs, ReviewSettings, sha256_of
+from .hashing import sha256_of
+from .review import Review, ReviewInputs, ReviewSettings
 
 FIDELITY_TOLERANCE = 0.02  # absolute, on train and holdout fidelity, for clock-bounded solves
 EXACT_STEPS = ("intake", "anatomy", "proximity")

@@ -8,7 +8,6 @@ with identical results and nothing recomputed.
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import json
 import os
 import threading
@@ -20,6 +19,7 @@ import numpy as np
 
 from .errors import GrovewiseError, SettingError
 from .forest import Forest
+from .hashing import sha256_of
 from .loaders import Dataset, from_estimator, load_data, load_native
 from .loaders.exactness import ExactnessCheck, check_exactness
 from .storage import StorageError, decode, encode, load_arrays, save_arrays
@@ -41,14 +41,6 @@ Progress = Callable[[str, float, str], None]  # (step, fraction 0..1, message)
 
 class CancelledError(GrovewiseError):
     """The user cancelled a step; earlier results are kept."""
-
-
-def sha256_of(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 @dataclass
@@ -184,6 +176,7 @@ class CasesResult:
     greedy: np.ndarray
     split: np.ndarray  # 0 train, 1 holdout (review data), 2 holdout file
     disagreements: np.ndarray  # row indices where the surrogate differs from the ensemble
+    fill_values: np.ndarray  # per feature: what a missing value is for the surrogate
 
     @property
     def agreement(self) -> float:
@@ -352,47 +345,75 @@ class Review:
                                definition=definition(self.forest), rows=rows, counts=counts,
                                pairs=pairs, n_pairs_at_threshold=n_pairs)
 
+    def _surrogate_rows(self) -> tuple[np.ndarray, np.ndarray]:
+        """Every row the surrogate sees (review data, then any holdout file), and which of
+        them are held out."""
+        X = self.data.X
+        if self.holdout_data is None:
+            return X, self.intake.holdout_rows
+        return (np.vstack([X, self.holdout_data.X]),
+                np.arange(X.shape[0], X.shape[0] + self.holdout_data.X.shape[0]))
+
+    def fill_values(self) -> np.ndarray:
+        """Per feature, the value a missing entry takes for the surrogate: the median of the
+        training rows (0 for a feature missing on every training row). The surrogate is a
+        tree of comparisons and cannot route a missing value itself."""
+        X = self.data.X[self.intake.train_rows]
+        with np.errstate(all="ignore"):
+            present = ~np.isnan(X)
+            med = np.array([np.median(X[present[:, j], j]) if present[:, j].any() else 0.0
+                            for j in range(X.shape[1])])
+        return med
+
+    def filled(self, X: np.ndarray) -> np.ndarray:
+        """``X`` with missing values replaced by :meth:`fill_values`."""
+        return np.where(np.isnan(X), self.fill_values()[None, :], X)
+
     def _run_surrogate(self, report: Progress, cancel: threading.Event | None):
         from .surrogate import mimic
+        from .surrogate.solver import Cancel
 
-        st, X = self.settings, self.data.X
-        intake = self.intake
-        holdout = (self.holdout_data.X if self.holdout_data is not None
-                   else X[intake.holdout_rows] if intake.holdout_rows.size else None)
+        st = self.settings
+        X, held = self._surrogate_rows()
         forbidden = [f for f, kind in st.flags.items() if kind == "forbidden"]
+        stop = Cancel(cancel) if cancel is not None else None
 
         def on_progress(info) -> None:
-            report("surrogate", float(getattr(info, "fraction", 0.5)), str(info))
+            gap = "" if info.gap is None else f", gap {info.gap:.3f}"
+            best = "" if info.incumbent is None else f"incumbent {info.incumbent:.5f}"
+            bound = "" if info.bound is None else f", bound {info.bound:.5f}"
+            frac = min(0.99, info.elapsed / max(st.time_limit, 1e-9))
+            report("surrogate", frac, f"{info.stage}: {info.elapsed:.1f} s, {best}{bound}{gap}")
 
-        return mimic(self.forest, X[intake.train_rows], depth=st.depth,
-                     proximity_threshold=st.proximity_threshold, holdout=holdout,
+        return mimic(self.forest, self.filled(X), depth=st.depth,
+                     proximity_threshold=st.proximity_threshold,
+                     holdout=held if held.size else None,
                      max_features_per_split=st.max_features_per_split, alpha=st.alpha,
                      time_limit=st.time_limit, node_limit=st.node_limit,
-                     random_state=st.seed, forbidden_features=forbidden,
-                     progress=on_progress, cancel=cancel)
+                     random_state=st.seed, forbidden_features=forbidden or None,
+                     progress=on_progress, cancel=stop)
 
     def _run_cases(self, report: Progress) -> CasesResult:
-        X = self.data.X
-        parts = [X] if self.holdout_data is None else [X, self.holdout_data.X]
-        allX = np.vstack(parts)
+        allX, held = self._surrogate_rows()
         split = np.zeros(allX.shape[0], dtype=np.int64)
-        split[self.intake.holdout_rows] = 1
-        if self.holdout_data is not None:
-            split[X.shape[0]:] = 2
+        split[held] = 2 if self.holdout_data is not None else 1
         proba = self.forest.predict_proba(allX)
         ensemble = np.argmax(proba, axis=1)
-        sur = self.surrogate.surrogate
-        surrogate = np.asarray(sur.predict_index(allX))
+        filled = self.filled(allX)
+        sur = self.surrogate
+        classes = list(self.forest.classes_)
+        to_index = np.vectorize(lambda c: classes.index(c), otypes=[np.int64])
+        surrogate = to_index(sur.surrogate.predict(filled))
+        greedy = to_index(sur.greedy.predict(filled))
         return CasesResult(proba=proba, ensemble=ensemble, surrogate=surrogate,
-                           surrogate_leaf=np.asarray(sur.apply(allX)),
-                           greedy=np.asarray(self.surrogate.greedy.predict_index(allX)),
-                           split=split, disagreements=np.flatnonzero(surrogate != ensemble))
+                           surrogate_leaf=np.asarray(sur.surrogate.apply(filled)),
+                           greedy=greedy, split=split,
+                           disagreements=np.flatnonzero(surrogate != ensemble),
+                           fill_values=self.fill_values())
 
     def case_rows(self) -> np.ndarray:
         """Every row of the review data (and holdout file), in the Cases order."""
-        if self.holdout_data is None:
-            return self.data.X
-        return np.vstack([self.data.X, self.holdout_data.X])
+        return self._surrogate_rows()[0]
 
     # ------------------------------------------------------------------ saving
     def _state(self) -> dict:

@@ -1,7 +1,9 @@
 """Results to JSON plus arrays and back, without pickle.
 
 A review's results are Grovewise's own dataclasses (and a few of its own objects, such as the
-fitted surrogate) holding numbers, strings and numpy arrays. :func:`encode` turns such a value
+fitted surrogate) holding numbers, strings and numpy arrays, and now and then a fitted
+scikit-learn estimator (the greedy baseline tree), which is stored through skops and
+reloaded only if it holds nothing beyond the tree-model allow-list. :func:`encode` turns such a value
 into a JSON-ready tree and a dict of arrays (saved as ``.npz`` with ``allow_pickle=False``);
 :func:`decode` rebuilds the same objects. Only classes defined inside the ``grovewise``
 package are rebuilt, so a hostile results file cannot make Grovewise import or run anything
@@ -83,6 +85,8 @@ class _Encoder:
                 return {"__map__": {k: self(v) for k, v in obj.items()}}
             return {"__pairs__": [[self(k), self(v)] for k, v in obj.items()]}
         cls = type(obj)
+        if cls.__module__.startswith("sklearn."):
+            return {"__skops__": self.array(np.frombuffer(_skops_bytes(obj), dtype=np.uint8))}
         if not cls.__module__.startswith(PACKAGE):
             raise StorageError(f"{_type_name(cls)} is not one of Grovewise's own types and "
                                "cannot be saved with the results.")
@@ -122,6 +126,8 @@ def decode(tree: Any, arrays: dict[str, np.ndarray]) -> Any:
         return {k: decode(v, arrays) for k, v in tree["__map__"].items()}
     if "__pairs__" in tree:
         return {_hashable(decode(k, arrays)): decode(v, arrays) for k, v in tree["__pairs__"]}
+    if "__skops__" in tree:
+        return _skops_object(decode(tree["__skops__"], arrays).tobytes())
     if "__type__" in tree:
         cls = _resolve(tree["__type__"])
         obj = cls.__new__(cls)
@@ -129,6 +135,25 @@ def decode(tree: Any, arrays: dict[str, np.ndarray]) -> Any:
         return obj
     raise StorageError("saved results hold an entry Grovewise does not recognise; the file "
                        "may be damaged.")
+
+
+def _skops_bytes(obj: Any) -> bytes:
+    import skops.io as sio
+
+    return sio.dumps(obj)
+
+
+def _skops_object(data: bytes) -> Any:
+    import skops.io as sio
+
+    from .loaders.model_files import SKOPS_ALLOWED
+
+    found = sio.get_untrusted_types(data=data)
+    unexpected = sorted(set(found) - SKOPS_ALLOWED)
+    if unexpected:
+        raise StorageError(f"saved results hold an estimator with unexpected types "
+                           f"({', '.join(unexpected[:5])}); Grovewise does not load it.")
+    return sio.loads(data, trusted=list(found))
 
 
 def _hashable(v: Any) -> Any:

@@ -21,9 +21,11 @@ from ..storage import encode
 FORMAT = "grovewise-manifest/1"
 LIBRARIES = ("grovewise", "numpy", "scipy", "scikit-learn", "xgboost", "xgboost-cpu", "pyomo",
              "highspy", "numba", "skops", "pandas", "pyarrow", "matplotlib")
-# Keys whose values are timings or clock readings: left out of digests.
-TIMING_KEYS = frozenset({"time", "seconds", "elapsed", "wall_time", "build_time", "solve_time",
-                         "time_to_first", "timings", "started_at", "finished_at", "trace"})
+# Keys whose values are timings, clock readings or file locations: left out of digests, so
+# that a re-run elsewhere, on the same files, gives the same digests.
+UNDIGESTED_KEYS = frozenset({"time", "seconds", "elapsed", "wall_time", "build_time",
+                             "solve_time", "time_to_first", "timings", "started_at",
+                             "finished_at", "trace", "source", "file", "path"})
 
 
 def library_versions() -> dict[str, str]:
@@ -44,18 +46,18 @@ def library_versions() -> dict[str, str]:
     return versions
 
 
-def _strip_timings(tree):
+def _strip_undigested(tree):
     if isinstance(tree, dict):
-        return {k: _strip_timings(v) for k, v in tree.items() if k not in TIMING_KEYS}
+        return {k: _strip_undigested(v) for k, v in tree.items() if k not in UNDIGESTED_KEYS}
     if isinstance(tree, list):
-        return [_strip_timings(v) for v in tree]
+        return [_strip_undigested(v) for v in tree]
     return tree
 
 
 def digest(obj) -> str:
-    """sha256 of a result's content (timings left out), stable across runs and machines."""
+    """sha256 of a result's content (timings and paths left out), stable across re-runs."""
     tree, arrays = encode(obj)
-    tree = _strip_timings(tree)
+    tree = _strip_undigested(tree)
     h = hashlib.sha256(json.dumps(tree, sort_keys=True, separators=(",", ":")).encode())
     used = set()
     _collect_array_keys(tree, used)
