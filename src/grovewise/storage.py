@@ -52,8 +52,9 @@ def _resolve(name: str) -> type:
 
 
 class _Encoder:
-    def __init__(self) -> None:
+    def __init__(self, stable: bool = False) -> None:
         self.arrays: dict[str, np.ndarray] = {}
+        self.stable = stable
 
     def array(self, a: np.ndarray) -> dict:
         if a.dtype == object:
@@ -86,6 +87,8 @@ class _Encoder:
             return {"__pairs__": [[self(k), self(v)] for k, v in obj.items()]}
         cls = type(obj)
         if cls.__module__.startswith("sklearn."):
+            if self.stable:  # skops bytes vary run to run; the fitted state does not
+                return {"__sklearn__": _type_name(cls), "state": self(_sklearn_state(obj))}
             return {"__skops__": self.array(np.frombuffer(_skops_bytes(obj), dtype=np.uint8))}
         if not cls.__module__.startswith(PACKAGE):
             raise StorageError(f"{_type_name(cls)} is not one of Grovewise's own types and "
@@ -97,9 +100,13 @@ class _Encoder:
         return {"__type__": _type_name(cls), "state": {k: self(v) for k, v in state.items()}}
 
 
-def encode(obj: Any) -> tuple[Any, dict[str, np.ndarray]]:
-    """``obj`` as (a JSON-ready tree, the arrays it refers to by key)."""
-    enc = _Encoder()
+def encode(obj: Any, stable: bool = False) -> tuple[Any, dict[str, np.ndarray]]:
+    """``obj`` as (a JSON-ready tree, the arrays it refers to by key).
+
+    ``stable=True`` gives a form for digests only (not for :func:`decode`): the same
+    content always encodes the same way, scikit-learn estimators included.
+    """
+    enc = _Encoder(stable)
     tree = enc(obj)
     return tree, enc.arrays
 
@@ -135,6 +142,17 @@ def decode(tree: Any, arrays: dict[str, np.ndarray]) -> Any:
         return obj
     raise StorageError("saved results hold an entry Grovewise does not recognise; the file "
                        "may be damaged.")
+
+
+def _sklearn_state(obj: Any) -> dict:
+    """A scikit-learn estimator's fitted state as plain values (its compiled tree as arrays)."""
+    state = {}
+    for key, value in vars(obj).items():
+        if type(value).__module__.startswith("sklearn.tree._tree"):
+            tree_state = value.__getstate__()
+            value = {"nodes": tree_state["nodes"], "values": tree_state["values"]}
+        state[key] = value
+    return state
 
 
 def _skops_bytes(obj: Any) -> bytes:

@@ -56,7 +56,7 @@ def _strip_undigested(tree):
 
 def digest(obj) -> str:
     """sha256 of a result's content (timings and paths left out), stable across re-runs."""
-    tree, arrays = encode(obj)
+    tree, arrays = encode(obj, stable=True)
     tree = _strip_undigested(tree)
     h = hashlib.sha256(json.dumps(tree, sort_keys=True, separators=(",", ":")).encode())
     used = set()

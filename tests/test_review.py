@@ -1,0 +1,247 @@
+"""The review end to end: pipeline, report (HTML and PDF read back), manifest, reproduction,
+atomic writes and reopening.
+
+Outside references: poppler's pdftotext / pdfinfo / pdftoppm read the PDF back; Python's
+html.parser reads the HTML back; hashlib's sha256 identifies the files.
+"""
+
+import json
+import shutil
+import signal
+import subprocess
+import sys
+import textwrap
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import skops.io as sio
+from sklearn.ensemble import RandomForestClassifier
+
+import grovewise as gw
+from grovewise.cli import main
+from grovewise.report.content import export_report
+from grovewise.reproduce import reproduce
+from grovewise.review import Review, ReviewInputs, Reviewer, ReviewSettings
+from grovewise.sample_data import sample_paths
+
+FAST = dict(depth=2, time_limit=6.0, permutation_repeats=2, seed=3)
+POPPLER = shutil.which("pdftotext") and shutil.which("pdfinfo") and shutil.which("pdftoppm")
+needs_poppler = pytest.mark.skipif(not POPPLER, reason="poppler-utils (pdftotext) not installed; "
+                                   ".ci/run installs it")
+
+
+@pytest.fixture(scope="module")
+def sample_review(tmp_path_factory):
+    """The bundled sample reviewed once, with a short time limit, report written."""
+    folder = tmp_path_factory.mktemp("sample_review")
+    paths = sample_paths()
+    # Copies, so a test may change a byte of the data without touching the package.
+    model = shutil.copy(paths["forest"], folder / "model.skops")
+    data = shutil.copy(paths["data"], folder / "data.csv")
+    review = Review(ReviewInputs(model, data, target=paths["target"]),
+                    ReviewSettings(**FAST, flags={"age_years": "protected"}),
+                    Reviewer(name="R. Okafor", role="model validator", decision="approve_with_conditions",
+                             conditions="re-review after retraining", notes="sample run"))
+    review.run()
+    out = folder / "report"
+    files = export_report(review, out)
+    return review, files, folder
+
+
+def test_every_step_has_results(sample_review):
+    review, files, _ = sample_review
+    assert set(review.results) == {"intake", "anatomy", "proximity", "surrogate", "cases"}
+    assert review.intake.exactness.passed
+    assert review.intake.exactness.max_abs_proba_diff <= 1e-9
+    fid = review.surrogate.fidelity
+    # The surrogate is never worse than the greedy tree on its own training rows.
+    assert review.surrogate.weighted_fidelity["surrogate"]["train"] >= \
+        review.surrogate.weighted_fidelity["greedy"]["train"] - 1e-12
+    assert 0.8 < fid["surrogate"]["holdout"] <= 1.0
+    n = review.data.X.shape[0]
+    assert review.cases.ensemble.shape == (n,)
+    np.testing.assert_array_equal(review.cases.ensemble, review.forest.predict_index(review.data.X))
+    assert review.intake.train_rows.size + review.intake.holdout_rows.size == n
+    assert set(files) == {"html", "pdf", "manifest"}
+
+
+@needs_poppler
+def test_pdf_has_the_sections(sample_review):
+    _, files, _ = sample_review
+    text = subprocess.run(["pdftotext", "-layout", str(files["pdf"]), "-"], capture_output=True,
+                          text=True, check=True).stdout
+    flat = " ".join(text.split())
+    for section in ("Model review", "Summary", "Intake", "Anatomy", "Proximity", "Surrogate",
+                    "Solver certificate", "Cases where the surrogate and the ensemble disagree",
+                    "Limitations and cautions", "How to reproduce this review", "Sign-off",
+                    "R. Okafor", "approved with conditions", "re-review after retraining"):
+        assert section in flat, section
+    review = sample_review[0]
+    assert review.intake.model_sha256[:40] in flat.replace(" ", "") or \
+        review.intake.model_sha256[:20] in flat
+    assert "Fidelity is measured on the data given" in flat
+    info = subprocess.run(["pdfinfo", str(files["pdf"])], capture_output=True, text=True,
+                          check=True).stdout
+    pages = int(next(line.split()[-1] for line in info.splitlines() if line.startswith("Pages")))
+    assert 5 <= pages <= 30
+
+
+@needs_poppler
+def test_pdf_pages_render(sample_review, tmp_path):
+    from PIL import Image
+
+    _, files, _ = sample_review
+    subprocess.run(["pdftoppm", "-r", "30", "-png", str(files["pdf"]), str(tmp_path / "p")],
+                   check=True)
+    pages = sorted(tmp_path.glob("p-*.png"))
+    assert pages
+    for page in pages:
+        grey = np.asarray(Image.open(page).convert("L"), dtype=float)
+        assert grey.std() > 3, page.name  # ink on every page
+
+
+def test_manifest_records_what_reproduction_needs(sample_review):
+    review, files, folder = sample_review
+    manifest = json.loads(files["manifest"].read_text())
+    import hashlib
+
+    model_bytes = (folder / "model.skops").read_bytes()
+    assert manifest["inputs"]["model"]["sha256"] == hashlib.sha256(model_bytes).hexdigest()
+    assert manifest["inputs"]["data"]["sha256"] == \
+        hashlib.sha256((folder / "data.csv").read_bytes()).hexdigest()
+    assert manifest["settings"]["seed"] == 3 and manifest["seeds"]["surrogate"] == 3
+    for lib in ("python", "grovewise", "numpy", "scikit-learn", "pyomo", "highspy", "HiGHS"):
+        assert lib in manifest["versions"], lib
+    assert set(manifest["digests"]) == set(review.results)
+    assert manifest["certificate"]["status"] == review.surrogate.certificate["status"]
+    assert manifest["report_files"]["pdf"]["sha256"] == \
+        hashlib.sha256(files["pdf"].read_bytes()).hexdigest()
+
+
+def test_reproduce_passes_then_fails_on_one_changed_byte(sample_review, capsys):
+    _, files, folder = sample_review
+    verdict = reproduce(files["manifest"])
+    assert verdict.passed, verdict.text()
+    data = folder / "data.csv"
+    original = data.read_bytes()
+    try:
+        changed = bytearray(original)
+        at = original.index(b"\n", 200) + 12  # a digit inside a data row
+        changed[at] = ord("7") if changed[at] != ord("7") else ord("8")
+        data.write_bytes(bytes(changed))
+        verdict = reproduce(files["manifest"])
+        assert not verdict.passed
+        assert any(name == "data file" and not ok for name, ok, _ in verdict.checks)
+        assert main(["reproduce", str(files["manifest"])]) == 1
+        assert "NOT reproduced" in capsys.readouterr().out
+    finally:
+        data.write_bytes(original)
+
+
+def test_reopened_review_gives_the_same_results(sample_review, tmp_path):
+    from grovewise.report.manifest import digest
+
+    review, _, _ = sample_review
+    review.save(tmp_path / "saved")
+    back = Review.open(tmp_path / "saved")
+    for step, result in review.results.items():
+        assert digest(back.results[step]) == digest(result), step
+    X = review.case_rows()
+    np.testing.assert_array_equal(back.surrogate.surrogate.predict(back.filled(X)),
+                                  review.surrogate.surrogate.predict(review.filled(X)))
+    assert back.reviewer == review.reviewer and back.settings == review.settings
+    assert back.surrogate.surrogate.rules_ == review.surrogate.surrogate.rules_
+
+
+def test_killed_write_leaves_the_previous_report(sample_review, tmp_path):
+    """A report write killed midway (SIGKILL) leaves the report that was there intact."""
+    review, files, _ = sample_review
+    out = tmp_path / "out"
+    out.mkdir()
+    for name in ("report.pdf", "report.html"):
+        shutil.copy(files[name.split(".")[1]], out / name)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    saved = tmp_path / "saved"
+    review.save(saved)
+    script = textwrap.dedent(f"""
+        import os, signal, threading
+        from grovewise.review import Review
+        from grovewise.report import content, pdf_report
+        review = Review.open({str(saved)!r})
+        real = pdf_report.render_pdf
+        def slow(doc, path):
+            import matplotlib.backends.backend_pdf as b
+            orig = b.PdfPages.savefig
+            def savefig(self, *a, **k):
+                orig(self, *a, **k)
+                os.kill(os.getpid(), signal.SIGKILL)  # die after the first page
+            b.PdfPages.savefig = savefig
+            return real(doc, path)
+        content.render_pdf = slow
+        content.export_report(review, {str(out)!r}, formats=("pdf",))
+    """)
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
+    assert proc.returncode == -signal.SIGKILL, proc.stderr[-2000:]
+    after = {p.name: p.read_bytes() for p in out.iterdir() if not p.name.startswith(".")}
+    assert after == before
+
+
+class _Collect(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.tags, self.text = [], []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+HOSTILE = ["<script>alert(1)</script>", 'dose "mg"', "a & b", "plain"]
+
+
+def test_hostile_feature_names_are_escaped(tmp_path):
+    rng = np.random.default_rng(0)
+    frame = pd.DataFrame(rng.normal(size=(300, 4)), columns=HOSTILE)
+    frame["outcome"] = ((frame[HOSTILE[0]] + frame[HOSTILE[1]]) > 0).astype(int)
+    model = RandomForestClassifier(20, max_depth=3, random_state=0).fit(frame[HOSTILE],
+                                                                       frame["outcome"])
+    sio.dump(model, tmp_path / "m.skops")
+    frame.to_csv(tmp_path / "d.csv", index=False)
+    review = Review(ReviewInputs(tmp_path / "m.skops", tmp_path / "d.csv", target="outcome"),
+                    ReviewSettings(depth=1, time_limit=3.0, permutation_repeats=1),
+                    Reviewer(name="<b>Eve</b> & co", notes='"quoted" <i>'))
+    review.run()
+    files = export_report(review, tmp_path / "r", formats=("html",))
+    html = files["html"].read_text()
+    assert "<script>alert(1)</script>" not in html
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+    assert "<b>Eve</b>" not in html and "&lt;b&gt;Eve&lt;/b&gt; &amp; co" in html
+    parser = _Collect()
+    parser.feed(html)
+    assert "script" not in parser.tags and "b" not in parser.tags
+    assert any("<script>alert(1)</script>" in t for t in parser.text)
+
+
+def test_review_command_line(tmp_path, capsys):
+    paths = sample_paths()
+    code = main(["review", str(paths["forest"]), str(paths["data"]), "--target", "complication",
+                 "--out", str(tmp_path / "o"), "--time-limit", "4", "--depth", "1",
+                 "--reviewer", "A. Lind"])
+    assert code == 0
+    out = capsys.readouterr().out
+    assert "surrogate     fidelity" in out and "report.pdf" in out
+    assert (tmp_path / "o" / "manifest.json").is_file()
+    assert Review.open(tmp_path / "o" / "review").reviewer.name == "A. Lind"
+    bad = main(["review", str(paths["forest"]), str(paths["data"]), "--target", "nope",
+                "--out", str(tmp_path / "p")])
+    assert bad == 2
+    err = " ".join(capsys.readouterr().err.split())
+    assert "nope" in err and "Traceback" not in err
+    assert main(["review", str(paths["forest"]), str(paths["data"]), "--out", str(tmp_path / "q"),
+                 "--depth", "9"]) == 2
+    assert "depth" in capsys.readouterr().err
