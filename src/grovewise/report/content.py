@@ -107,6 +107,9 @@ def _summary(doc: Document, review) -> None:
     if sur.note:
         doc.add(Paragraph(sur.note, "note"))
     doc.add(Paragraph(CAUTIONS, "caution"))
+    doc.add(Figure(surrogate_tree_figure(sur.surrogate), width=0.85,
+                   caption="The surrogate's rules (yes to the left); details in the Surrogate "
+                           "section"))
 
 
 def _holdout_text(review) -> str:

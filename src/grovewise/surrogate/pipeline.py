@@ -1,0 +1,367 @@
+"""The anytime pipeline that produces the surrogate tree (issue 4).
+
+The program alone, on a sample, loses to the greedy tree too often, so the surrogate is
+the best of several candidates, every one scored the same way, on the full training set
+(weighted disagreement + alpha * sparsity penalty, weights summing to 1):
+
+1. ``greedy``: CART of the same depth on every row (the baseline, always reported).
+2. ``local_search``: node-by-node re-optimisation of the hyperplanes from the greedy tree.
+3. ``program``: the MILP of SURROGATE_MILP.md on a representative weighted sample,
+   warm-started (z included) from the best candidate so far.
+4. ``polish``: the program's tree with offsets re-fit, then node-by-node search, on all rows.
+
+The answer is the best candidate; ``winner`` names its stage, so a greedy win is said
+plainly. Every stage's objective, fidelity and time are recorded.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from ..errors import SettingError
+from .greedy import fit_greedy, oblique_from_greedy
+from .local_search import SearchSettings, improve, refit_offsets, separated_groups
+from .program import ProgramData, build_program, choose_margin
+from .sample import Sample, auto_sample_size, build_sample, union_find_groups
+from .solver import Cancel, Progress, SolveResult, compile_program, solve
+from .tree import (ObliqueTree, Scaling, objective, trivial_tree, weighted_disagreement,
+                   with_majority_classes)
+
+
+@dataclass
+class PipelineSettings:
+    """Settings of one pipeline run (see :class:`~grovewise.surrogate.ObliqueSurrogate`)."""
+
+    depth: int
+    admissible: np.ndarray
+    penalty: np.ndarray
+    alpha: float = 0.0
+    max_features: int | None = None
+    min_leaf_size: int = 1
+    time_limit: float = 30.0
+    node_limit: int | None = None
+    mip_gap: float | None = None
+    seed: int = 0
+    sample_size: int | None = None
+    routing: str = "node"
+    proximity_penalty: float | None = None
+    local_search_share: float = 0.25
+    polish_share: float = 0.1
+    threads: int | None = None
+    run_program: bool = True
+    mps_path: str | None = None
+
+
+@dataclass
+class StageRecord:
+    """One candidate: its stage, full-training objective and fidelity, and when it was ready."""
+
+    name: str
+    objective: float
+    fidelity: float
+    elapsed: float
+    duration: float
+    separated_groups: int = 0
+    note: str = ""
+
+    def to_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+@dataclass
+class PipelineResult:
+    """The chosen tree and how it was found."""
+
+    tree: ObliqueTree
+    greedy_tree: ObliqueTree
+    greedy: object
+    winner: str
+    status: str
+    objective: float
+    fidelity: float
+    bound: float | None
+    gap: float | None
+    stages: list[StageRecord]
+    certificate: dict | None
+    sample: dict | None
+    program_size: dict | None
+    readback: dict | None
+    first_candidate_time: float
+    build_time: float
+    solve_time: float
+    total_time: float
+    history: list[Progress] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {
+            "winner": self.winner, "status": self.status, "objective": self.objective,
+            "fidelity": self.fidelity, "bound": self.bound, "gap": self.gap,
+            "stages": [s.to_dict() for s in self.stages], "certificate": self.certificate,
+            "sample": self.sample, "program_size": self.program_size, "readback": self.readback,
+            "first_candidate_time": self.first_candidate_time, "build_time": self.build_time,
+            "solve_time": self.solve_time, "total_time": self.total_time,
+        }
+
+
+class _Board:
+    """The candidates so far, and the best of them.
+
+    Order: not below the greedy tree's weighted fidelity (the answer never loses to the
+    baseline, whatever alpha or proximity asks); then fewer separated must-link groups; then
+    the lower objective. A must-link group is kept whenever a candidate that keeps it is at
+    least as faithful as the greedy tree; the groups the answer separates are counted in its
+    stage record (``separated_groups``), never dropped silently.
+    """
+
+    def __init__(self, Xs, y, wn, K, st: PipelineSettings, group, t0):
+        self.Xs, self.y, self.wn, self.K, self.st, self.group, self.t0 = Xs, y, wn, K, st, group, t0
+        self.stages: list[StageRecord] = []
+        self.best: tuple | None = None  # (key, name, tree)
+        self.greedy_fidelity: float | None = None
+
+    def add(self, name: str, tree: ObliqueTree, started: float, note: str = "") -> ObliqueTree:
+        tree = with_majority_classes(tree, self.Xs, self.y, self.wn, self.K)
+        obj = objective(tree, self.Xs, self.y, self.wn, self.st.alpha, self.st.penalty)
+        fid = 1.0 - weighted_disagreement(tree, self.Xs, self.y, self.wn)
+        sep = separated_groups(tree, self.Xs, self.group)
+        now = time.perf_counter()
+        self.stages.append(StageRecord(name=name, objective=obj, fidelity=fid,
+                                       elapsed=now - self.t0, duration=now - started,
+                                       separated_groups=sep, note=note))
+        if self.greedy_fidelity is None:
+            self.greedy_fidelity = fid
+        below = fid < self.greedy_fidelity - 1e-12
+        key = (below, sep, obj)
+        if self.best is None or key < self.best[0]:
+            self.best = (key, name, tree)
+        return tree
+
+    @property
+    def objective(self) -> float:
+        return self.best[0][2]
+
+    @property
+    def tree(self) -> ObliqueTree:
+        return self.best[2]
+
+    @property
+    def name(self) -> str:
+        return self.best[1]
+
+
+def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
+                 scaling: Scaling, st: PipelineSettings, *, must_link: np.ndarray | None = None,
+                 soft_pairs: np.ndarray | None = None,
+                 progress: Callable[[Progress], None] | None = None,
+                 cancel: Cancel | None = None) -> PipelineResult:
+    """Run the anytime pipeline on (X, y, w) in original units; ``y`` are class indices.
+
+    ``must_link`` row pairs must share a leaf (hard); ``soft_pairs`` row pairs cost
+    ``st.proximity_penalty`` each when separated (program stage only).
+    """
+    t0 = time.perf_counter()
+    deadline = t0 + st.time_limit
+    rng = np.random.default_rng(st.seed)
+    Xs = scaling.transform(X)
+    n = Xs.shape[0]
+    wn = w / w.sum()
+    row_group = union_find_groups(n, must_link)
+    group = row_group if must_link is not None and len(must_link) else None
+    board = _Board(Xs, y, wn, n_classes, st, group, t0)
+
+    def emit(stage: str) -> None:
+        if progress is not None:
+            rec = board.stages[-1]
+            progress(Progress(elapsed=time.perf_counter() - t0, incumbent=rec.objective,
+                              bound=None, gap=None, stage=stage))
+
+    # 1. greedy on every row
+    s0 = time.perf_counter()
+    greedy = fit_greedy(X, y, w, st.depth, st.min_leaf_size, random_state=st.seed)
+    gtree = board.add("greedy", oblique_from_greedy(greedy, scaling, st.depth), s0)
+    first_time = time.perf_counter() - t0
+    emit("greedy")
+    if n_classes > 1 and not _stop(cancel):
+        # the one-leaf tree is a candidate too: always feasible, whatever the groups
+        board.add("trivial", trivial_tree(Xs.shape[1], st.depth, scaling), time.perf_counter())
+
+    # 2. node-by-node search from the greedy tree
+    search = SearchSettings(admissible=st.admissible, penalty=st.penalty, alpha=st.alpha,
+                            max_features=st.max_features, min_leaf_size=st.min_leaf_size)
+    if n_classes > 1 and not _stop(cancel):
+        s0 = time.perf_counter()
+        ls_deadline = min(deadline, s0 + st.local_search_share * st.time_limit)
+        t_ls, _ = improve(gtree, Xs, y, wn, n_classes, search, group=group,
+                          deadline=ls_deadline, should_stop=lambda: _stop(cancel))
+        board.add("local_search", t_ls, s0)
+        emit("local_search")
+        if group is not None and board.name != "local_search" and not _stop(cancel):
+            # keeping every group costs too much fidelity: search without them as well
+            s0 = time.perf_counter()
+            t_free, _ = improve(gtree, Xs, y, wn, n_classes, search,
+                                deadline=min(deadline, s0 + st.local_search_share * st.time_limit),
+                                should_stop=lambda: _stop(cancel))
+            board.add("local_search_free", t_free, s0, note="must-link groups not enforced")
+            emit("local_search_free")
+
+    # 3. the program on a representative sample
+    cert: SolveResult | None = None
+    sample = prog = None
+    readback = None
+    build_time = solve_time = 0.0
+    note = ""
+    best_obj = board.objective
+    if n_classes <= 1 or best_obj <= 1e-12:
+        note = "skipped: a candidate already reaches objective 0, the least possible"
+    elif not st.run_program:
+        note = "skipped: not asked for"
+    elif _stop(cancel):
+        note = "skipped: cancelled"
+    else:
+        reserve = st.polish_share * st.time_limit
+        s0 = time.perf_counter()
+        size = st.sample_size or auto_sample_size(st.depth, int(st.admissible.any(axis=0).sum()),
+                                                  st.time_limit)
+        # groups go into the program only if the start keeps them (else it has no start)
+        keep_groups = group is not None and board.best[0][1] == 0
+        sample = build_sample(Xs, y, wn, n_classes, row_group if keep_groups else
+                              np.arange(n), size, rng)
+        prog = _build(sample, st, n_classes, board, gtree, soft_pairs, n)
+        cp = compile_program(prog)
+        build_time = prog.build_time + cp.compile_time
+        if st.mps_path:
+            prog.write_mps(st.mps_path)
+        left = deadline - time.perf_counter() - reserve
+        if left < 0.5:
+            note = f"skipped: {left:.1f} s left after building the program"
+        else:
+            start, start_from = _start(prog, cp, board, gtree)
+
+            def relay(p: Progress) -> None:
+                if progress is not None:
+                    progress(Progress(elapsed=time.perf_counter() - t0, incumbent=p.incumbent,
+                                      bound=p.bound, gap=p.gap, nodes=p.nodes, stage="program"))
+
+            cert = solve(cp, start=start, time_limit=left, node_limit=st.node_limit,
+                         mip_gap=st.mip_gap, seed=st.seed, threads=st.threads,
+                         progress=relay, cancel=cancel)
+            solve_time = cert.time
+            if cert.status == "infeasible":
+                _raise_infeasible(must_link, sample)
+            if cert.values is not None:
+                value = cp.value_getter(cert.values)
+                t_prog = prog.tree_from_values(value, scaling)
+                readback = _readback(prog, value, t_prog)
+                note = f"start from {start_from}" if start_from else "no feasible start"
+                t_prog = board.add("program", t_prog, s0, note=note)
+                # 4. polish on every row
+                if not _stop(cancel):
+                    s1 = time.perf_counter()
+                    pg = group if keep_groups else None
+                    t_pol, _ = refit_offsets(t_prog, Xs, y, wn, n_classes, search, group=pg)
+                    t_pol, _ = improve(t_pol, Xs, y, wn, n_classes, search, group=pg,
+                                       deadline=max(deadline, time.perf_counter() + 0.5),
+                                       should_stop=lambda: _stop(cancel))
+                    board.add("polish", t_pol, s1)
+                    emit("polish")
+            else:
+                note = f"the program found no incumbent ({cert.status})"
+
+    tree = board.tree
+    status, bound, gap = _status(board, cert, prog, sample, cancel, note)
+    obj = board.objective
+    fid = 1.0 - weighted_disagreement(tree, Xs, y, wn)
+    return PipelineResult(
+        tree=tree, greedy_tree=gtree, greedy=greedy, winner=board.name, status=status,
+        objective=obj, fidelity=fid, bound=bound, gap=gap, stages=board.stages,
+        certificate=None if cert is None else {**cert.to_dict(), "note": note},
+        sample=None if sample is None else sample.to_dict(),
+        program_size=None if prog is None else prog.size(), readback=readback,
+        first_candidate_time=first_time, build_time=build_time, solve_time=solve_time,
+        total_time=time.perf_counter() - t0, history=[] if cert is None else cert.history)
+
+
+def _stop(cancel: Cancel | None) -> bool:
+    return cancel is not None and cancel.cancelled
+
+
+def _build(sample: Sample, st: PipelineSettings, K: int, board: _Board, gtree: ObliqueTree,
+           soft_pairs, n_rows: int):
+    soft = np.zeros((0, 2), dtype=np.int64)
+    if soft_pairs is not None and len(soft_pairs) and st.proximity_penalty:
+        rg = sample.row_groups(n_rows)
+        sp = rg[np.asarray(soft_pairs, dtype=np.int64).reshape(-1, 2)]
+        sp = sp[(sp[:, 0] >= 0) & (sp[:, 1] >= 0) & (sp[:, 0] != sp[:, 1])]
+        soft = np.unique(np.sort(sp, axis=1), axis=0) if sp.size else soft
+    mu = choose_margin(sample.Xs, st.admissible, [board.tree, gtree])
+    data = ProgramData(Xs=sample.Xs, group=sample.group, class_weight=sample.class_weight,
+                       count=sample.count, depth=st.depth, n_classes=K,
+                       admissible=st.admissible, penalty=st.penalty, alpha=st.alpha,
+                       max_features=st.max_features, min_leaf_size=st.min_leaf_size,
+                       soft_pairs=soft, beta=float(st.proximity_penalty or 0.0), mu=mu,
+                       routing=st.routing)
+    return build_program(data)
+
+
+def _start(prog, cp, board: _Board, gtree: ObliqueTree):
+    """The best candidate as an exact MIP start (z included), else the greedy tree, else none."""
+    for name, tree in ((board.name, board.tree), ("greedy", gtree)):
+        vals, _ = prog.start_values(tree)
+        if vals is not None:
+            return cp.vector(vals), name
+    return None, None
+
+
+def _readback(prog, value, tree: ObliqueTree) -> dict:
+    """Does the tree read from the solution route the program's points as its z did?"""
+    d = prog.data
+    z_leaf = prog.program_leaves(value)
+    t_leaf = tree.route_scaled(d.Xs)
+    mismatch = int(np.count_nonzero(z_leaf != t_leaf))
+    g_leaf = np.zeros(d.n_groups, dtype=np.int64)
+    g_leaf[d.group] = t_leaf
+    pred = tree.leaf_class[g_leaf]
+    tree_dis = float(d.class_weight.sum() - d.class_weight[np.arange(d.n_groups), pred].sum())
+    prog_dis = prog.program_disagreement(value)
+    return {"points": int(d.Xs.shape[0]), "routing_mismatches": mismatch,
+            "tree_disagreement": tree_dis, "program_disagreement": prog_dis,
+            "consistent": mismatch == 0 and abs(tree_dis - prog_dis) <= 1e-6}
+
+
+def _status(board: _Board, cert, prog, sample, cancel, note):
+    """Status word, bound and gap for the chosen tree (see ObliqueSurrogate.status_)."""
+    if cert is None:
+        if "objective 0" in note:
+            return "optimal", 0.0, 0.0
+        if _stop(cancel):
+            return "cancelled", None, None
+        return ("greedy_fallback" if board.name == "greedy" else "skipped"), None, None
+    bound = cert.bound
+    gap = None
+    if bound is not None:
+        vals, obj = prog.start_values(board.tree)
+        if vals is not None:
+            gap = 0.0 if obj - bound <= 1e-6 else float((obj - bound) / max(obj, 1e-12))
+        elif cert.gap is not None:
+            gap = cert.gap
+    if cert.status == "cancelled":
+        return "cancelled", bound, gap
+    if gap is not None and gap <= 1e-6 and sample is not None:
+        return ("optimal" if sample.covers_all_rows else "optimal_on_sample"), bound, gap
+    if cert.values is None:
+        return ("greedy_fallback" if board.name == "greedy" else "no_incumbent"), bound, gap
+    if board.name == "greedy":
+        return "greedy_fallback", bound, gap
+    return cert.status, bound, gap
+
+
+def _raise_infeasible(must_link, sample: Sample) -> None:
+    pairs = [] if must_link is None else np.asarray(must_link).reshape(-1, 2)[:10].tolist()
+    raise SettingError(
+        "the surrogate program is infeasible with the hard must-link pairs "
+        f"(first pairs: {pairs}); these rows cannot all share leaves under the other settings. "
+        "Use soft proximity (proximity_penalty=...) or a higher proximity threshold.")
