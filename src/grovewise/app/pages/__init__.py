@@ -1,0 +1,1 @@
+"""The six pages of the window, one module each."""

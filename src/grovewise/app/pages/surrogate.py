@@ -1,0 +1,453 @@
+"""Surrogate: settings, the solve with its live incumbent and bound, the tree and its rules,
+fidelity beside the greedy tree, the certificate, and exports."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from PySide6.QtCore import QTimer
+from PySide6.QtWidgets import (QDoubleSpinBox, QFileDialog, QFormLayout, QGridLayout,
+                               QHBoxLayout, QHeaderView, QPlainTextEdit, QPushButton, QSpinBox,
+                               QTableWidget, QTableWidgetItem, QVBoxLayout, QAbstractItemView)
+
+from ..charts import SolveChart, stage_words
+from ..theme import mono_font
+from ...report.figures_surrogate import surrogate_tree_figure
+from ..tree_figure import cart_tree_figure
+from ..widgets import CautionBox, Card, FigureView, KeyValues, Verdict, wrapped
+from .base import Page
+
+STATUS_WORDS = {
+    "optimal": "proved optimal on every training row",
+    "optimal_on_sample": "proved optimal for the program's sample of points (not for every row)",
+    "time_limit": "time limit reached: the best tree found, not proved optimal",
+    "node_limit": "node limit reached: the best tree found, not proved optimal",
+    "gap_reached": "stopped at the gap target",
+    "cancelled": "cancelled: the best tree found before the solve was stopped",
+    "greedy_fallback": "the greedy tree (CART) is the answer: no other candidate beat it",
+    "no_incumbent": "the program found no tree in time; the answer is the best other candidate",
+    "skipped": "the program did not run; the answer is the best of the fast candidates",
+}
+EXPORTS = ("png", "svg", "json", "mps")
+
+
+def pct(v) -> str:
+    return "—" if v is None else f"{100 * v:.1f}%"
+
+
+def num(v, spec: str = ".4g") -> str:
+    return "—" if v is None else format(v, spec)
+
+
+class SurrogatePage(Page):
+    key = "surrogate"
+    title = "Surrogate"
+    question = ("Which shallow tree of readable rules agrees best with the ensemble, how close "
+                "is it, and how far is it from proved optimal?")
+    step = "surrogate"
+
+    def __init__(self, window) -> None:
+        super().__init__(window)
+        self.run_button.setText("Solve")
+        self.run_button.setToolTip("Find the surrogate tree with these settings (Ctrl+Return)")
+        self.stop_button = self.add_button("Cancel", "Stop the solve; the best tree so far is "
+                                                     "kept (Esc)")
+        self.stop_button.clicked.connect(lambda: self.window_.cancel())
+        self.stop_button.setEnabled(False)
+        self._shortcut()
+        self.chart = SolveChart()
+        self._chart_dirty = False
+        self._chart_timer = QTimer(self)
+        self._chart_timer.setInterval(400)
+        self._chart_timer.timeout.connect(self._draw_chart)
+        self.points = []
+        self.figures: dict[str, object] = {}
+        top = QHBoxLayout()
+        top.setSpacing(12)
+        top.addWidget(self._settings_card(), 0)
+        live = Card("Solve", note="The incumbent is the objective of the best tree so far "
+                    "(weighted disagreement with the ensemble plus alpha times the sparsity "
+                    "cost); the bound is the lowest objective the program has proved possible "
+                    "on its sample.")
+        self.live_text = wrapped("")
+        self.chart_view = FigureView()
+        self.chart_view.set_figure(self.chart.fig)
+        live.body.addWidget(self.live_text)
+        live.body.addWidget(self.chart_view)
+        top.addWidget(live, 1)
+        self.body_layout.addLayout(top)
+        self.caution = CautionBox()
+        self.body_layout.addWidget(self.caution)
+        self.result_card = Card("Result")
+        self.verdict = Verdict()
+        self.fidelity = QTableWidget(2, 4)
+        self.fidelity.setHorizontalHeaderLabels(["tree", "train", "holdout", "all rows"])
+        self.fidelity.verticalHeader().setVisible(False)
+        self.fidelity.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
+        self.fidelity.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.Stretch)
+        self.fidelity.setMaximumHeight(90)
+        self.fidelity_note = wrapped("", muted=True)
+        self.cert = KeyValues()
+        grid = QGridLayout()
+        grid.addWidget(self.verdict, 0, 0, 1, 2)
+        fid_box = QVBoxLayout()
+        fid_box.addWidget(wrapped("Fidelity: the share of rows where the tree gives the "
+                                  "ensemble's class."))
+        fid_box.addWidget(self.fidelity)
+        fid_box.addWidget(self.fidelity_note)
+        grid.addLayout(fid_box, 1, 0)
+        cert_box = QVBoxLayout()
+        cert_box.addWidget(wrapped("Certificate"))
+        cert_box.addWidget(self.cert)
+        grid.addLayout(cert_box, 1, 1)
+        grid.setColumnStretch(0, 1)
+        grid.setColumnStretch(1, 1)
+        self.result_card.body.addLayout(grid)
+        self.body_layout.addWidget(self.result_card)
+        self.tree_card = Card("The surrogate tree", note="Left branch (yes): the rule holds. "
+                              "Coefficients and cut points are rounded for reading; the fidelity "
+                              "shown is that of the rounded rules.")
+        self.tree_view = FigureView()
+        self.tree_card.body.addWidget(self.tree_view)
+        ex = QHBoxLayout()
+        self.export_buttons = {}
+        for fmt in EXPORTS:
+            b = QPushButton(f"Export {fmt.upper()}…")
+            b.clicked.connect(lambda _=False, f=fmt: self.ask_export(f))
+            ex.addWidget(b)
+            self.export_buttons[fmt] = b
+        ex.addStretch(1)
+        self.tree_card.body.addLayout(ex)
+        self.body_layout.addWidget(self.tree_card)
+        self.greedy_card = Card("Beside it: the greedy tree of the same depth",
+                                note="CART fit on the same targets (the ensemble's classes) "
+                                     "and weights: the baseline the surrogate must beat.")
+        self.greedy_view = FigureView()
+        self.greedy_card.body.addWidget(self.greedy_view)
+        self.body_layout.addWidget(self.greedy_card)
+        self.rules_card = Card("Rules as text")
+        self.rules = QPlainTextEdit()
+        self.rules.setObjectName("rules")
+        self.rules.setReadOnly(True)
+        self.rules.setFont(mono_font())
+        self.rules.setMinimumHeight(200)
+        self.rules_card.body.addWidget(self.rules)
+        self.body_layout.addWidget(self.rules_card)
+        self.stages = KeyValues()
+        stages_card = Card("How it was found (each candidate, scored on every training row)")
+        stages_card.body.addWidget(self.stages)
+        self.stages_card = stages_card
+        self.body_layout.addWidget(stages_card)
+        self.body_layout.addStretch(1)
+        self._drawn_for = None
+
+    def _shortcut(self) -> None:
+        from PySide6.QtGui import QKeySequence, QShortcut
+
+        sc = QShortcut(QKeySequence("Ctrl+Return"), self)
+        sc.activated.connect(self.solve)
+
+    # ------------------------------------------------------------------ settings
+    def _settings_card(self) -> Card:
+        card = Card("Settings")
+        form = QFormLayout()
+        self.depth = QSpinBox()
+        self.depth.setRange(1, 4)
+        self.depth.setToolTip("Depth of the tree: 2 gives four leaves, 3 eight")
+        self.k = QSpinBox()
+        self.k.setRange(0, 64)
+        self.k.setSpecialValueText("any number")
+        self.k.setToolTip("At most this many features in one split's rule (1: ordinary one-feature cuts)")
+        self.alpha = QDoubleSpinBox()
+        self.alpha.setDecimals(5)
+        self.alpha.setRange(0.0, 1.0)
+        self.alpha.setSingleStep(0.0005)
+        self.alpha.setToolTip("Fidelity given up per unit of sparsity cost: higher gives fewer "
+                              "features, favouring those the ensemble itself uses at that depth")
+        self.tau = QDoubleSpinBox()
+        self.tau.setDecimals(3)
+        self.tau.setRange(0.05, 1.0)
+        self.tau.setSingleStep(0.01)
+        self.tau.setToolTip("Samples with at least this proximity must share a leaf")
+        self.time_limit = QDoubleSpinBox()
+        self.time_limit.setRange(1.0, 7200.0)
+        self.time_limit.setDecimals(0)
+        self.time_limit.setSuffix(" s")
+        self.time_limit.setToolTip("Time for the whole search; the best tree found is kept")
+        self.node_limit = QSpinBox()
+        self.node_limit.setRange(0, 10_000_000)
+        self.node_limit.setSpecialValueText("none")
+        self.node_limit.setToolTip("Branch-and-bound nodes; set one well below what the time "
+                                   "allows to make the solve reproducible")
+        self.seed = QSpinBox()
+        self.seed.setRange(0, 2_147_483_647)
+        form.addRow("Depth", self.depth)
+        form.addRow("Features per split", self.k)
+        form.addRow("Alpha", self.alpha)
+        form.addRow("Proximity threshold", self.tau)
+        form.addRow("Time limit", self.time_limit)
+        form.addRow("Node limit", self.node_limit)
+        form.addRow("Seed", self.seed)
+        card.body.addLayout(form)
+        self.forbidden_note = wrapped("", muted=True)
+        card.body.addWidget(self.forbidden_note)
+        card.setMinimumWidth(290)
+        card.setMaximumWidth(360)
+        return card
+
+    def load_settings(self) -> None:
+        r = self.review
+        if r is None:
+            return
+        s = r.settings
+        self.depth.setValue(int(s.depth))
+        self.k.setMaximum(max(r.forest.n_features if r.forest is not None else 64, 1))
+        self.k.setValue(0 if s.max_features_per_split is None else int(s.max_features_per_split))
+        self.alpha.setValue(float(s.alpha))
+        self.tau.setValue(float(s.proximity_threshold))
+        self.time_limit.setValue(float(s.time_limit))
+        self.node_limit.setValue(0 if s.node_limit is None else int(s.node_limit))
+        self.seed.setValue(int(s.seed))
+
+    def settings_from_form(self) -> dict:
+        return {"depth": int(self.depth.value()),
+                "max_features_per_split": None if self.k.value() == 0 else int(self.k.value()),
+                "alpha": float(self.alpha.value()),
+                "proximity_threshold": float(self.tau.value()),
+                "time_limit": float(self.time_limit.value()),
+                "node_limit": None if self.node_limit.value() == 0 else int(self.node_limit.value()),
+                "seed": int(self.seed.value())}
+
+    def run(self) -> bool:
+        return self.solve()
+
+    def solve(self) -> bool:
+        """Apply the form's settings and start the surrogate step (and the cases after it)."""
+        if self.review is None or self.window_.runner.busy:
+            return False
+        if not self.window_.set_settings(**self.settings_from_form()):
+            return False
+        return self.window_.run_steps(["surrogate", "cases"])
+
+    # ------------------------------------------------------------------ live chart
+    def start_chart(self) -> None:
+        self.points = []
+        self.chart.reset(self.review.settings.time_limit)
+        self.live_text.setText("Solving: the greedy tree first, then a node-by-node search, then "
+                               "the MILP on a representative sample, then a polish on every row.")
+        self._draw_chart()
+        self._chart_timer.start()
+
+    def add_point(self, point) -> None:
+        self.points.append(point)
+        self.chart.add(point)
+        self._chart_dirty = True
+        gap = "" if point.gap is None else f", gap {100 * point.gap:.0f}%"
+        inc = "—" if point.incumbent is None else f"{point.incumbent:.4f}"
+        limit = max(float(self.review.settings.time_limit), 1e-9) if self.review else 1.0
+        self.window_.progress.setValue(int(1000 * min(point.elapsed / limit, 1.0)))
+        self.live_text.setText(f"{point.elapsed:.1f} s · stage {point.stage or '—'} · incumbent "
+                               f"{inc}" + ("" if point.bound is None else
+                                           f" · bound {point.bound:.4f}") + gap)
+
+    def _draw_chart(self) -> None:
+        if self._chart_dirty or not self.points:
+            self.chart.redraw()
+            self._chart_dirty = False
+            if self.chart_view.canvas is not None:
+                self.chart_view.canvas.draw_idle()
+        if not self.window_.runner.busy:
+            self._chart_timer.stop()
+
+    def set_busy(self, busy: bool) -> None:
+        super().set_busy(busy)
+        solving = busy and self.window_.runner.kind == "steps"
+        self.stop_button.setEnabled(solving)
+        for b in self.export_buttons.values():
+            b.setEnabled(not busy and self.review is not None and self.review.surrogate is not None)
+        if not busy:
+            self._update_exports()
+
+    # ------------------------------------------------------------------ result
+    def reset(self) -> None:
+        self._drawn_for = None
+        self.points = []
+        if self.review is not None:
+            self.chart.reset(self.review.settings.time_limit)
+            self.chart.redraw()
+            if self.chart_view.canvas is not None:
+                self.chart_view.canvas.draw_idle()
+
+    def refresh(self) -> None:
+        r = self.review
+        self.load_settings()
+        forbidden = [f for f, k in (r.settings.flags.items() if r else []) if k == "forbidden"]
+        self.forbidden_note.setText(
+            ("Kept out (forbidden on the Anatomy page): " + ", ".join(forbidden)) if forbidden
+            else "No feature is forbidden (flag them on the Anatomy page).")
+        res = r.surrogate if r is not None else None
+        for w in (self.result_card, self.tree_card, self.greedy_card, self.rules_card,
+                  self.stages_card):
+            w.setVisible(res is not None)
+        if r is None:
+            self.live_text.setText("Open a model and its data first.")
+            return
+        if res is None:
+            if not self.window_.runner.busy:
+                self.live_text.setText("Not solved yet: check the settings and press Solve "
+                                       "(Ctrl+Return).")
+            return
+        if self._drawn_for is res:
+            return
+        self._drawn_for = res
+        self._show_result(res)
+        if not self.points:
+            self._replay(res)
+        else:
+            self.chart.finish(res.certificate.get("objective"))
+            self._chart_dirty = True
+            self._draw_chart()
+
+    def _replay(self, res) -> None:
+        """A reopened review: draw the chart from the candidates it recorded."""
+        from ..workers import SolverPoint
+
+        self.chart.reset(float(res.settings.get("time_limit", self.review.settings.time_limit)))
+        for s in res.stages:  # each candidate when it was ready; the solver's own log runs on
+            # its own clock, which starts later, so it is not mixed in here
+            name = "MILP tree" if s["name"] == "program" else s["name"]
+            self.chart.add(SolverPoint(s["elapsed"], s["objective"], None, None, name))
+        self.chart.finish(res.certificate.get("objective"))
+        self.chart.redraw()
+        if self.chart_view.canvas is not None:
+            self.chart_view.canvas.draw_idle()
+        status = res.certificate["status"]
+        self.live_text.setText(f"Finished: {STATUS_WORDS.get(status, status)}. The chart shows "
+                               "the candidates recorded with the review.")
+
+    def _show_result(self, res) -> None:
+        est, cert = res.surrogate, res.certificate
+        status = cert.get("status", "")
+        words = STATUS_WORDS.get(status, status)
+        f = res.fidelity
+        head = (f"{words[:1].upper()}{words[1:]} (status {status}); the tree comes from the "
+                f"{stage_words(res.winner)} stage. Holdout fidelity "
+                f"{pct(f['surrogate']['holdout'])} against {pct(f['greedy']['holdout'])} for the "
+                "greedy tree.")
+        good = (f["surrogate"]["holdout"] or 0) >= (f["greedy"]["holdout"] or 0)
+        self.verdict.set("good" if good else "neutral", head + (f"\n{res.note}" if res.note else ""))
+        for row, name in enumerate(("surrogate", "greedy")):
+            cells = [name if name == "greedy" else "surrogate (oblique)"] + \
+                [pct(f[name][part]) for part in ("train", "holdout", "full")]
+            for c, text in enumerate(cells):
+                self.fidelity.setItem(row, c, QTableWidgetItem(text))
+        self.fidelity.resizeRowsToContents()
+        w = res.weighted_fidelity
+        self.fidelity_note.setText(
+            f"Weighted by the ensemble's confidence: surrogate {pct(w['surrogate']['holdout'])}, "
+            f"greedy {pct(w['greedy']['holdout'])} on the holdout.")
+        rb = cert.get("readback") or {}
+        sample = cert.get("sample") or {}
+        self.cert.set_rows([
+            ("Status", status), ("Objective", num(cert.get("objective"))),
+            ("Bound", num(cert.get("bound"))),
+            ("Gap", "—" if cert.get("gap") is None else f"{100 * cert['gap']:.1f}%" + (
+                " (the bound has not left zero: nothing is proved about optimality yet)"
+                if cert.get("bound") is not None and abs(cert["bound"]) < 1e-12
+                and (cert.get("objective") or 0) > 0 else "")),
+            ("Time", f"{num(cert.get('time'), '.1f')} s (solve {num(cert.get('solve_time'), '.1f')} s, "
+                     f"build {num(cert.get('build_time'), '.2f')} s)"),
+            ("Program's sample", f"{sample.get('points', '—')} points for "
+                                 f"{sample.get('rows_represented', '—')} rows"
+             if sample else "not used"),
+            ("Branch-and-bound nodes", str(cert.get("nodes") if cert.get("nodes") is not None else "—")),
+            ("Read-back check", "—" if not rb else ("consistent" if rb.get("consistent") else
+                                                   "NOT consistent")),
+            ("Must-link pairs", f"{res.proximity.get('pairs', 0):,} at proximity "
+                                f"{res.proximity.get('threshold')}, "
+                                f"{res.proximity.get('separated_pairs', 0)} separated"),
+            ("Solver", f"{cert.get('solver', '')} " + ", ".join(
+                f"{k} {v}" for k, v in (cert.get("versions") or {}).items()))])
+        names = list(est.feature_names_)
+        classes = list(est.classes_)
+        width = 2.6 * 2 ** int(est.depth) + 0.6
+        fig = surrogate_tree_figure(est, title=f"Surrogate: holdout fidelity "
+                                    f"{pct(res.fidelity['surrogate']['holdout'])}", width=width)
+        self.tree_view.set_figure(fig)
+        self.figures["surrogate"] = fig
+        g = res.fidelity["greedy"]
+        gfig = cart_tree_figure(res.greedy, names, classes, width=width,
+                                title=f"Greedy tree (CART): holdout fidelity {pct(g['holdout'])}")
+        self.greedy_view.set_figure(gfig)
+        self.rules.setPlainText(est.export_text())
+        self.stages.set_rows([(stage_words(s["name"]), f"objective {s['objective']:.5f}, fidelity "
+                                          f"{s['fidelity']:.1%}, ready at {s['elapsed']:.1f} s"
+                                          + (f" ({s['note']})" if s.get("note") else ""))
+                              for s in res.stages])
+        self._update_exports()
+
+    # ------------------------------------------------------------------ exports
+    def _mps_writer(self):
+        res = self.review.surrogate if self.review is not None else None
+        if res is None:
+            return None
+        for obj, name in ((res, "write_mps"), (res, "export_mps"), (res.surrogate, "export_mps"),
+                          (res.surrogate, "write_mps")):
+            fn = getattr(obj, name, None)
+            if callable(fn):
+                return fn
+        return None
+
+    def _update_exports(self) -> None:
+        has = self.review is not None and self.review.surrogate is not None
+        for fmt, b in self.export_buttons.items():
+            b.setEnabled(has and not self.window_.runner.busy)
+        if has and self._mps_writer() is None:
+            b = self.export_buttons["mps"]
+            b.setEnabled(False)
+            b.setToolTip("This version's surrogate result has no MPS writer yet.")
+
+    def ask_export(self, fmt: str) -> None:
+        filters = {"png": "PNG image (*.png)", "svg": "SVG drawing (*.svg)",
+                   "json": "JSON (*.json)", "mps": "MPS program (*.mps)"}
+        path, _ = QFileDialog.getSaveFileName(self, f"Export the surrogate as {fmt.upper()}",
+                                              f"surrogate.{fmt}", filters[fmt])
+        if path:
+            self.export(fmt, path)
+
+    def export(self, fmt: str, path) -> Path | None:
+        """Write the surrogate as PNG/SVG (the tree drawing), JSON or MPS to ``path``."""
+        res = self.review.surrogate if self.review is not None else None
+        if res is None:
+            return None
+        path = Path(path)
+        try:
+            if fmt in ("png", "svg"):
+                from ...report.figure_files import save_figure
+
+                stem = path.with_suffix("") if path.suffix.lower() == f".{fmt}" else path
+                out = save_figure(self.figures["surrogate"], stem, formats=(fmt,), dpi=200)[0]
+            elif fmt == "json":
+                from ...report.figure_files import write_atomically
+
+                text = res.surrogate.export_json()
+                out = write_atomically(path, lambda fh: fh.write(text), binary=False)
+            else:
+                writer = self._mps_writer()
+                if writer is None:
+                    self.window_.say("MPS export needs a newer surrogate result.")
+                    return None
+                writer(str(path))
+                out = path
+        except Exception as exc:
+            self.window_.show_problem(exc, f"exporting the surrogate as {fmt.upper()}")
+            return None
+        self.window_.say(f"Exported {out}.")
+        return out
+
+    def status_note(self) -> str:
+        res = self.review.surrogate if self.review is not None else None
+        if res is None:
+            return ""
+        h = res.fidelity["surrogate"]["holdout"]
+        return f"{res.certificate.get('status', '')} · holdout {pct(h)}"
