@@ -8,12 +8,12 @@ re-run's fidelity must be within ``FIDELITY_TOLERANCE`` of the recorded one.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from .errors import GrovewiseError
 from .report.manifest import FORMAT, build_manifest
+from .storage import read_document
 from .hashing import sha256_of
 from .review import Review, ReviewInputs, ReviewSettings
 
@@ -41,17 +41,8 @@ class Verdict:
 
 
 def read_manifest(path) -> dict:
-    path = Path(path)
-    try:
-        manifest = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise GrovewiseError(f"{path}: no such manifest; give the manifest.json a review "
-                             "wrote.") from None
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise GrovewiseError(f"{path}: not a readable manifest ({exc}).") from None
-    if not isinstance(manifest, dict) or manifest.get("format") != FORMAT:
-        raise GrovewiseError(f"{path}: not a Grovewise manifest (expected format {FORMAT}).")
-    return manifest
+    return read_document(Path(path), FORMAT, "manifest",
+                         "give the manifest.json that a review wrote.")
 
 
 def _resolve(base: Path, entry: dict | None) -> Path | None:

@@ -22,8 +22,9 @@ from .forest import Forest
 from .hashing import sha256_of
 from .loaders import Dataset, from_estimator, load_data, load_native
 from .loaders.exactness import ExactnessCheck, check_exactness
-from .storage import StorageError, decode, encode, load_arrays, save_arrays
+from .storage import StorageError, decode, encode, load_arrays, read_document, save_arrays
 from .summary import ModelSummary, summarize
+from .surrogate.mimic import READABLE_DEFAULTS
 
 STEPS = ("intake", "anatomy", "proximity", "surrogate", "cases")
 REQUIRES = {"intake": (), "anatomy": ("intake",), "proximity": ("intake",),
@@ -63,13 +64,14 @@ class ReviewInputs:
 class ReviewSettings:
     """Every setting of a review; the manifest records them all.
 
-    ``max_features_per_split`` and ``alpha`` default to values that keep rules readable
-    (at most two features per split, a small price per feature used).
+    ``max_features_per_split`` and ``alpha`` default to the surrogate's readable-rule
+    defaults (``grovewise.surrogate.READABLE_DEFAULTS``: at most two features per split, a
+    small price per feature used).
     """
 
     depth: int = 2
-    max_features_per_split: int | None = 2
-    alpha: float = 0.01
+    max_features_per_split: int | None = READABLE_DEFAULTS["max_features_per_split"]
+    alpha: float = READABLE_DEFAULTS["alpha"]
     proximity_threshold: float = 0.9
     time_limit: float = 60.0
     node_limit: int | None = None
@@ -457,16 +459,8 @@ class Review:
         folder = Path(folder)
         path = folder / REVIEW_FILE if folder.is_dir() else folder
         folder = path.parent
-        try:
-            doc = json.loads(path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise StorageError(f"{path}: no saved review here; choose the folder a review was "
-                               "saved to.") from None
-        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-            raise StorageError(f"{path}: not a readable saved review ({exc}).") from None
-        if not isinstance(doc, dict) or doc.get("format") != FORMAT:
-            raise StorageError(f"{path}: not a Grovewise review file (format "
-                               f"{doc.get('format') if isinstance(doc, dict) else None!r}).")
+        doc = read_document(path, FORMAT, "saved review",
+                            "choose the folder a review was saved to.")
         arrays_path = folder / doc["arrays"]
         if not arrays_path.is_file() or sha256_of(arrays_path) != doc["arrays_sha256"]:
             raise StorageError(f"{arrays_path}: the arrays file is missing or does not match "

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import dataclasses
 import importlib
+import json
 import math
 from pathlib import Path, PurePath
 from typing import Any
@@ -176,6 +177,21 @@ def _skops_object(data: bytes) -> Any:
 
 def _hashable(v: Any) -> Any:
     return tuple(v) if isinstance(v, list) else v
+
+
+def read_document(path: Path, fmt: str, what: str, missing_hint: str) -> dict:
+    """A JSON document of Grovewise's format ``fmt`` (a saved review, a manifest), or a
+    StorageError naming the file and what is wrong with it."""
+    try:
+        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise StorageError(f"{path}: no {what} here; {missing_hint}") from None
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise StorageError(f"{path}: not a readable {what} ({exc}).") from None
+    if not isinstance(doc, dict) or doc.get("format") != fmt:
+        found = doc.get("format") if isinstance(doc, dict) else None
+        raise StorageError(f"{path}: not a Grovewise {what} (format {found!r}, expected {fmt}).")
+    return doc
 
 
 def save_arrays(path: Path, arrays: dict[str, np.ndarray]) -> None:
