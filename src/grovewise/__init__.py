@@ -10,12 +10,14 @@ from .errors import (DataError, GrovewiseError, ModelFileError, SettingError, Un
                      UnsupportedModelError)
 from .forest import Forest, Tree
 from .loaders import Dataset, from_estimator, load_data, load_model
+from .surrogate import ObliqueSurrogate, mimic
 
 __version__ = "0.1.0"
 
 __all__ = [
-    "DataError", "Dataset", "Forest", "GrovewiseError", "ModelFileError", "SettingError", "Tree",
+    "DataError", "Dataset", "Forest", "GrovewiseError", "ModelFileError", "ObliqueSurrogate",
+    "SettingError", "Tree",
     "UnsafeModelError", "UnsupportedModelError", "depth_usage", "from_estimator",
-    "impurity_importance", "load_data", "load_model", "position_usage", "proximity",
+    "impurity_importance", "load_data", "load_model", "mimic", "position_usage", "proximity",
     "proximity_pairs", "__version__",
 ]

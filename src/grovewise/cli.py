@@ -6,6 +6,7 @@ Every command exits non-zero with a one-paragraph message (never a traceback) on
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import sys
 import textwrap
@@ -157,6 +158,44 @@ def cmd_demo(args) -> int:
     return run_window(review=review)
 
 
+def cmd_surrogate(args) -> int:
+    """Fit the surrogate and export it: rules as text and JSON, the tree as PNG and SVG, the
+    program as MPS."""
+    from .report.atomic import write_atomic
+    from .report.figure_files import save_figure
+    from .report.figures_surrogate import surrogate_tree_figure
+    from .review import Review, ReviewInputs
+
+    _warn_if_trusted(args)
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    review = Review(ReviewInputs(args.model, args.data, target=args.target, trusted=args.trust),
+                    _settings_from(args))
+    progress = TerminalProgress()
+    review.run_step("intake", progress)
+    review.run_step("surrogate", progress, mps_path=out / "program.mps")
+    result = review.surrogate
+    est = result.surrogate
+    write_atomic(out / "rules.txt", est.export_text())
+    write_atomic(out / "surrogate.json", json.dumps(result.to_dict(), indent=1))
+    save_figure(surrogate_tree_figure(est, title=f"Surrogate of {Path(args.model).name}"),
+                out / "tree", formats=("png", "svg"), dpi=args.dpi)
+    fid = result.fidelity
+    print(est.rules_)
+    print(f"fidelity: surrogate {fid['surrogate']['train']:.3f} train, "
+          f"{_fmt_optional(fid['surrogate']['holdout'])} holdout; greedy "
+          f"{fid['greedy']['train']:.3f} train, {_fmt_optional(fid['greedy']['holdout'])} holdout")
+    cert = result.certificate
+    print(f"certificate: {cert['status']}, objective {cert['objective']:.5f}, bound "
+          f"{_fmt_optional(cert['bound'])}, gap {_fmt_optional(cert['gap'])}; winning stage "
+          f"{result.winner}")
+    if result.note:
+        print(result.note)
+    written = sorted(p.name for p in out.iterdir() if not p.name.startswith("."))
+    print(f"wrote {', '.join(written)} to {out}")
+    return 0
+
+
 def cmd_reproduce(args) -> int:
     """Re-run a review from its manifest and compare."""
     from .reproduce import reproduce
@@ -251,6 +290,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--formats", default="png,svg", help="figure formats, comma-separated")
     p.add_argument("--seed", type=int, default=0, help="seed of permutation importance")
     p.set_defaults(func=cmd_anatomy)
+
+    p = sub.add_parser("surrogate", help="fits and exports the surrogate")
+    _add_model_args(p, data="required")
+    p.add_argument("--target", help="name of the target column in DATA, if it has one")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for the exports")
+    p.add_argument("--dpi", type=float, default=150, help="resolution of the PNG tree")
+    _add_solve_args(p)
+    p.set_defaults(func=cmd_surrogate)
 
     p = sub.add_parser("review", help="the whole review: report, manifest")
     _add_model_args(p, data="required")

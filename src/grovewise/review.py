@@ -239,7 +239,9 @@ class Review:
         return self
 
     def run_step(self, step: str, progress: Progress | None = None,
-                 cancel: threading.Event | None = None) -> object:
+                 cancel: threading.Event | None = None, mps_path=None) -> object:
+        """Run one step (its prerequisites must have run). ``mps_path``: for the surrogate
+        step, also write the program HiGHS solves to this MPS file."""
         from time import perf_counter
 
         report = progress or (lambda *_: None)
@@ -249,7 +251,7 @@ class Review:
         report(step, 0.0, f"{step}: starting")
         start = perf_counter()
         runner = getattr(self, f"_run_{step}")
-        result = runner(report, cancel) if step == "surrogate" else runner(report)
+        result = runner(report, cancel, mps_path) if step == "surrogate" else runner(report)
         with self._lock:
             self.results[step] = result
             self.timings[step] = perf_counter() - start
@@ -371,7 +373,7 @@ class Review:
         """``X`` with missing values replaced by :meth:`fill_values`."""
         return np.where(np.isnan(X), self.fill_values()[None, :], X)
 
-    def _run_surrogate(self, report: Progress, cancel: threading.Event | None):
+    def _run_surrogate(self, report: Progress, cancel: threading.Event | None, mps_path=None):
         from .surrogate import mimic
         from .surrogate.solver import Cancel
 
@@ -393,7 +395,7 @@ class Review:
                      max_features_per_split=st.max_features_per_split, alpha=st.alpha,
                      time_limit=st.time_limit, node_limit=st.node_limit,
                      random_state=st.seed, forbidden_features=forbidden or None,
-                     progress=on_progress, cancel=stop)
+                     progress=on_progress, cancel=stop, mps_path=mps_path)
 
     def _run_cases(self, report: Progress) -> CasesResult:
         allX, held = self._surrogate_rows()

@@ -36,13 +36,9 @@ def library_versions() -> dict[str, str]:
             versions[name] = metadata.version(name)
         except metadata.PackageNotFoundError:
             continue
-    try:
-        import highspy
+    from ..surrogate.solver import versions as solver_versions
 
-        h = highspy.Highs()
-        versions["HiGHS"] = f"{h.versionMajor()}.{h.versionMinor()}.{h.versionPatch()}"
-    except Exception:  # an old highspy without version calls
-        pass
+    versions["HiGHS"] = solver_versions()["highs"]
     return versions
 
 

@@ -99,6 +99,31 @@ def versions() -> dict:
             "pyomo": pyomo.version.version}
 
 
+_STDOUT_LOCK = threading.Lock()
+
+
+def quiet_highs() -> highspy.Highs:
+    """A HiGHS instance with its output off. HiGHS prints a banner to the process's standard
+    output when an instance is made, before any option can be set; the banner would land in
+    the middle of Grovewise's own output, so standard output is pointed at /dev/null for that
+    moment."""
+    import os
+    import sys
+
+    with _STDOUT_LOCK:
+        sys.stdout.flush()
+        saved = os.dup(1)
+        try:
+            with open(os.devnull, "wb") as null:
+                os.dup2(null.fileno(), 1)
+                h = highspy.Highs()
+        finally:
+            os.dup2(saved, 1)
+            os.close(saved)
+    h.setOptionValue("output_flag", False)
+    return h
+
+
 def _highs_version() -> str:
     return f"{highspy.HIGHS_VERSION_MAJOR}.{highspy.HIGHS_VERSION_MINOR}.{highspy.HIGHS_VERSION_PATCH}"
 
@@ -194,8 +219,7 @@ def solve(compiled: CompiledProgram, *, start: np.ndarray | None = None,
     cancel : Cancel, optional
         Set from any thread to stop; the result then has status ``"cancelled"``.
     """
-    h = highspy.Highs()
-    h.setOptionValue("output_flag", False)
+    h = quiet_highs()
     h.passModel(compiled.lp)
     h.setOptionValue("time_limit", float(max(time_limit, 0.01)))
     if node_limit is not None:
