@@ -15,7 +15,7 @@ pytest.importorskip("PySide6")
 
 PAGES = ("1-intake", "2-anatomy", "3-proximity", "4-surrogate", "5-cases", "6-signoff")
 SCRIPT = ("import sys; from grovewise.app.launch import run_window; "
-          "sys.exit(run_window(sample=True, capture_dir=sys.argv[1], time_limit=4.0))")
+          "sys.exit(run_window(sample=True, capture_dir=sys.argv[1], time_limit=3.0))")
 KEEP = os.environ.get("GROVEWISE_KEEP_CAPTURES")  # a folder: keep the PNGs there to look at
 
 

@@ -77,5 +77,4 @@ def capture_page(page, path, ratio: float = CAPTURE_RATIO) -> Path:
     return path
 
 
-
 __all__ = ["CAPTURE_RATIO", "capture_name", "capture_page", "render_stack"]

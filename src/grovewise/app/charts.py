@@ -73,7 +73,7 @@ class SolveChart:
                                      drawstyle="steps-post", label="MILP bound (proven floor)")
         self.returned_line = ax.axhline(np.nan, color=theme.ACCENT, linewidth=1.0,
                                         linestyle=":", label="tree returned")
-        ax.set_xlabel("seconds", fontsize=8.5, color=theme.INK)
+        ax.set_xlabel("seconds since the solve started", fontsize=8.5, color=theme.INK)
         ax.set_ylabel("objective", fontsize=8.5, color=theme.INK)
         ax.set_xlim(0, max(self.time_limit, 1.0))
         ax.set_ylim(0, 0.2)
@@ -105,17 +105,20 @@ class SolveChart:
         for lab in self._labels:
             lab.remove()
         self._labels = []
-        for t, v, stage in c:
-            self._labels.append(ax.annotate(stage_words(stage), (t, v), xytext=(4, 4),
-                                            textcoords="offset points", fontsize=7.5,
-                                            color=theme.MUTED))
         values = [v for _, v, _ in c] + self.inc + self.bound
         if self.returned is not None:
             values.append(self.returned)
         top = max(values) if values else 0.2
         ax.set_ylim(0, max(top * 1.3, 1e-3))
-        right = max([self.time_limit] + [t for t, _, _ in c] + self.pt + self.bt)
-        ax.set_xlim(0, max(right, 1.0) * 1.02)
+        right = max(max([self.time_limit] + [t for t, _, _ in c] + self.pt + self.bt), 1.0) * 1.02
+        ax.set_xlim(0, right)
+        for t, v, stage in c:  # labels near the right edge go to the dot's left
+            late = t > 0.8 * right
+            self._labels.append(ax.annotate(stage_words(stage), (t, v),
+                                            xytext=(-4 if late else 4, 4),
+                                            ha="right" if late else "left",
+                                            textcoords="offset points", fontsize=7.5,
+                                            color=theme.MUTED))
 
 
 def pairs_figure(counts, threshold: float, n_at_threshold: int) -> Figure:

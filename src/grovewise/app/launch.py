@@ -94,6 +94,12 @@ def run_window(sample: bool = False, model=None, data=None, target=None, capture
     if capture:
         window.confirm_close = False
         window.resize(*CAPTURE_SIZE)
+    else:
+        from PySide6.QtCore import QSettings
+
+        geometry = QSettings().value("window/geometry")
+        if geometry:
+            window.restoreGeometry(geometry)
     limit = time_limit if time_limit is not None else (CAPTURE_TIME_LIMIT if capture else None)
     started = True
     if review is not None:

@@ -12,8 +12,7 @@ import dataclasses
 import time
 from pathlib import Path
 
-from PySide6.QtCore import QSettings, Qt, QTimer, Signal
-from PySide6.QtGui import QAction, QKeySequence
+from PySide6.QtCore import QSettings, QTimer, Signal
 from PySide6.QtWidgets import (QApplication, QFileDialog, QHBoxLayout, QLabel, QMainWindow,
                                QMessageBox, QProgressBar, QPushButton, QStackedWidget, QWidget)
 
@@ -23,6 +22,7 @@ from ..review import REQUIRES, REVIEW_FILE, STEPS, Review, ReviewInputs, ReviewS
 from . import problems, recent, theme
 from .capture import capture_name, capture_page
 from .icon import app_icon
+from .menus import build_menus
 from .open_dialog import DATA_SUFFIXES, OpenDialog
 from .pages.anatomy import AnatomyPage
 from .pages.cases import CasesPage
@@ -144,72 +144,8 @@ class MainWindow(QMainWindow):
         bar.addPermanentWidget(self.cancel_button)
         self._on_busy(False)
 
-    def _action(self, text: str, slot, shortcut=None, tip: str = "") -> QAction:
-        act = QAction(text, self)
-        if shortcut is not None:
-            act.setShortcut(QKeySequence(shortcut))
-            act.setShortcutContext(Qt.ShortcutContext.WindowShortcut)
-        if tip:
-            act.setStatusTip(tip)
-            act.setToolTip(tip)
-        act.triggered.connect(lambda _=False: slot())
-        self.addAction(act)
-        return act
-
     def _build_menus(self) -> None:
-        m = self.menuBar()
-        a = self.actions_ = {}
-        file = m.addMenu("&File")
-        a["open"] = self._action("&Open model and data…", self.ask_open, QKeySequence.StandardKey.Open)
-        a["sample"] = self._action("Open the bundled &sample", self.open_sample)
-        a["open_review"] = self._action("Open a saved &review…", self.ask_open_review, "Ctrl+Shift+O")
-        a["save"] = self._action("&Save review", self.save, QKeySequence.StandardKey.Save)
-        a["save_as"] = self._action("Save review &as…", self.save_as, "Ctrl+Shift+S")
-        a["export"] = self._action("&Export the report…", self.export_report, "Ctrl+E")
-        a["capture"] = self._action("&Capture this page…", lambda: self.capture_current(ask=True),
-                                    "Ctrl+Shift+C")
-        a["capture_all"] = self._action("Capture &every page…", self.capture_all_ask)
-        a["quit"] = self._action("&Quit", self.close, QKeySequence.StandardKey.Quit)
-        for key in ("open", "sample", "open_review"):
-            file.addAction(a[key])
-        self.recent_menu = file.addMenu("Open &recent")
-        self.recent_menu.aboutToShow.connect(self._fill_recent)
-        file.addSeparator()
-        for key in ("save", "save_as", "export"):
-            file.addAction(a[key])
-        file.addSeparator()
-        file.addAction(a["capture"])
-        file.addAction(a["capture_all"])
-        file.addSeparator()
-        file.addAction(a["quit"])
-        steps = m.addMenu("&Steps")
-        a["run"] = self._action("&Run this page's step", self.run_current, "Ctrl+R")
-        a["run_all"] = self._action("Run &every step", lambda: self.run_steps(list(STEPS)),
-                                    "Ctrl+Shift+R")
-        a["cancel"] = self._action("&Cancel the running step", self.cancel, "Esc")
-        a["compare"] = self._action("Compare with a &second model…",
-                                    lambda: self.pages["anatomy"].ask_second_model())
-        for key in ("run", "run_all", "cancel"):
-            steps.addAction(a[key])
-        steps.addSeparator()
-        steps.addAction(a["compare"])
-        go = m.addMenu("&Go")
-        for i, key in enumerate(PAGE_ORDER):
-            act = self._action(f"&{i + 1} {self.pages[key].title}", lambda k=key: self.go(k),
-                               f"Ctrl+{i + 1}")
-            a[f"go_{key}"] = act
-            go.addAction(act)
-        go.addSeparator()
-        a["next"] = self._action("&Next page", lambda: self.step_page(1), "Ctrl+PgDown")
-        a["previous"] = self._action("&Previous page", lambda: self.step_page(-1), "Ctrl+PgUp")
-        go.addAction(a["next"])
-        go.addAction(a["previous"])
-        help_ = m.addMenu("&Help")
-        a["keys"] = self._action("&Keyboard shortcuts", self.show_shortcuts, "F1")
-        a["log"] = self._action("Where is the &log file?", self.show_log_place)
-        a["about"] = self._action("&About Grovewise", self.show_about)
-        for key in ("keys", "log", "about"):
-            help_.addAction(a[key])
+        self.actions_ = build_menus(self)
 
     # ------------------------------------------------------------------ pages
     def go(self, key: str) -> None:
@@ -673,32 +609,6 @@ class MainWindow(QMainWindow):
 
     def _keep(self, dialog: QWidget) -> None:
         self._dialogs = [d for d in self._dialogs if d.isVisible()] + [dialog]
-
-    def show_shortcuts(self) -> None:
-        rows = [(a.text().replace("&", ""), a.shortcut().toString(QKeySequence.SequenceFormat.NativeText))
-                for a in self.actions_.values() if not a.shortcut().isEmpty()]
-        text = "\n".join(f"{k:<8}  {name}" for name, k in rows)
-        box = QMessageBox(QMessageBox.Icon.Information, "Keyboard shortcuts", text,
-                          QMessageBox.StandardButton.Ok, self)
-        box.setStyleSheet("QLabel { font-family: monospace; }")
-        self._keep(box)
-        box.open()
-
-    def show_log_place(self) -> None:
-        box = QMessageBox(QMessageBox.Icon.Information, "The log file",
-                          f"Details of unexpected problems are written to\n{problems.log_path()}",
-                          QMessageBox.StandardButton.Ok, self)
-        self._keep(box)
-        box.open()
-
-    def show_about(self) -> None:
-        from .. import __version__
-
-        box = QMessageBox(QMessageBox.Icon.Information, "About Grovewise",
-                          f"Grovewise {__version__}: review tree-ensemble classifiers and sign "
-                          "them off.", QMessageBox.StandardButton.Ok, self)
-        self._keep(box)
-        box.open()
 
     # ------------------------------------------------------------------ closing
     def closeEvent(self, event) -> None:

@@ -133,6 +133,7 @@ class FigureView(QWidget):
 
     MAX_DPI = 100.0
     MIN_DPI = 55.0
+    MAX_STRETCH = 1.3  # at most this much wider than designed: wider only spreads it thin
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
@@ -193,6 +194,7 @@ class FigureView(QWidget):
             if canvas.width() > 1:
                 fig.set_size_inches(canvas.width() / dpi, self.natural[1], forward=False)
         canvas.setFixedHeight(int(round(self.natural[1] * dpi)))
+        canvas.setMaximumWidth(int(self.natural[0] * dpi * self.MAX_STRETCH))
         canvas.draw_idle()
 
     def resizeEvent(self, event) -> None:

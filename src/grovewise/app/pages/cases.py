@@ -11,9 +11,9 @@ import re
 import numpy as np
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, QSortFilterProxyModel, Qt
 from PySide6.QtGui import QKeySequence, QShortcut
-from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QHBoxLayout, QLabel, QLineEdit,
-                               QListWidget, QListWidgetItem, QSplitter, QTableView, QVBoxLayout,
-                               QWidget, QScrollArea, QFrame)
+from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFrame, QHBoxLayout, QLabel,
+                               QLineEdit, QListWidget, QListWidgetItem, QScrollArea, QSplitter,
+                               QTableView)
 
 from .. import theme
 from ..paths import surrogate_path
@@ -124,23 +124,34 @@ class CasesFilter(QSortFilterProxyModel):
         self.setFilterCaseSensitivity(Qt.CaseSensitivity.CaseInsensitive)
         self.setFilterKeyColumn(-1)
 
+    def _refilter(self, change) -> None:
+        """Apply ``change()`` to the criteria and filter again (Qt 6.10's way when it has it)."""
+        if hasattr(self, "beginFilterChange"):
+            self.beginFilterChange()
+            change()
+            self.endFilterChange(QSortFilterProxyModel.Direction.Rows)
+        else:  # pragma: no cover - Qt before 6.10
+            change()
+            self.invalidateFilter()
+
     def set_mode(self, mode: str, value=None) -> None:
-        self.mode, self.value = mode, value
-        self.invalidateFilter()
+        def change() -> None:
+            self.mode, self.value = mode, value
+        self._refilter(change)
 
     def set_search(self, text: str) -> None:
         m = _CONDITION.match(text)
         src = self.sourceModel()
-        self.condition = None
+        condition, fixed = None, text.strip()
         if m and src is not None and src.column(m.group(1)) >= 0:
-            self.condition = (src.column(m.group(1)), m.group(2), float(m.group(3)))
-            self.setFilterFixedString("")
+            condition, fixed = (src.column(m.group(1)), m.group(2), float(m.group(3))), ""
         elif text.strip().isdigit():
-            self.condition = (0, "==", float(text.strip()))
-            self.setFilterFixedString("")
-        else:
-            self.setFilterFixedString(text.strip())
-        self.invalidateFilter()
+            condition, fixed = (0, "==", float(text.strip())), ""
+
+        def change() -> None:
+            self.condition = condition
+        self._refilter(change)
+        self.setFilterFixedString(fixed)
 
     def filterAcceptsRow(self, row: int, parent) -> bool:
         m: CasesModel = self.sourceModel()
@@ -372,7 +383,8 @@ class CasesPage(Page):
                            f"{t.product:.5g}</td></tr>")
             total = "missing" if math.isnan(st.total) else f"{st.total:.5g}"
             verdict = "yes: left" if st.holds else "no: right"
-            out.append(f"<tr><td colspan='3' nowrap>sum {total} {st.op} {st.threshold:.6g} ?</td>"
+            test = html.escape(f"sum {total} {st.op} {st.threshold:.6g} ?")
+            out.append(f"<tr><td colspan='3' nowrap>{test}</td>"
                        f"<td nowrap align='right'><b>{verdict}</b></td></tr></table>")
             if st.filled:
                 out.append(f"<p style='color:{theme.CAUTION}'>A value here is missing: the "

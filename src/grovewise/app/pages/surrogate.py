@@ -65,10 +65,10 @@ class SurrogatePage(Page):
         top = QHBoxLayout()
         top.setSpacing(12)
         top.addWidget(self._settings_card(), 0)
-        live = Card("Solve", note="The incumbent is the objective of the best tree so far "
-                    "(weighted disagreement with the ensemble plus alpha times the sparsity "
-                    "cost); the bound is the lowest objective the program has proved possible "
-                    "on its sample.")
+        live = Card("Solve", note="The objective: weighted disagreement with the ensemble plus "
+                    "alpha times the sparsity cost (lower is better). Dots: each candidate tree "
+                    "when it is ready, scored on every training row. Lines: the MILP's "
+                    "incumbent and the bound it has proved, on its sample of points.")
         self.live_text = wrapped("")
         self.chart_view = FigureView()
         self.chart_view.set_figure(self.chart.fig)
@@ -85,7 +85,6 @@ class SurrogatePage(Page):
         self.fidelity.verticalHeader().setVisible(False)
         self.fidelity.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
         self.fidelity.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.Stretch)
-        self.fidelity.setMaximumHeight(90)
         self.fidelity_note = wrapped("", muted=True)
         self.cert = KeyValues()
         grid = QGridLayout()
@@ -342,6 +341,8 @@ class SurrogatePage(Page):
             for c, text in enumerate(cells):
                 self.fidelity.setItem(row, c, QTableWidgetItem(text))
         self.fidelity.resizeRowsToContents()
+        self.fidelity.setFixedHeight(self.fidelity.horizontalHeader().height()
+                                     + sum(self.fidelity.rowHeight(r) for r in range(2)) + 4)
         w = res.weighted_fidelity
         self.fidelity_note.setText(
             f"Weighted by the ensemble's confidence: surrogate {pct(w['surrogate']['holdout'])}, "
