@@ -154,6 +154,14 @@ def test_reopened_review_gives_the_same_results(sample_review, tmp_path):
                                   review.surrogate.surrogate.predict(review.filled(X)))
     assert back.reviewer == review.reviewer and back.settings == review.settings
     assert back.surrogate.surrogate.rules_ == review.surrogate.surrogate.rules_
+    # The program HiGHS solved is kept too, and HiGHS reads it back.
+    import highspy
+
+    assert back.program_mps == review.program_mps
+    path = back.write_program(tmp_path / "program.mps")
+    h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    assert h.readModel(str(path)) == highspy.HighsStatus.kOk and h.getNumCol() > 0
 
 
 def test_killed_write_leaves_the_previous_report(sample_review, tmp_path):

@@ -75,7 +75,7 @@ class TerminalProgress:
         self.every = every
         self._last = 0.0
 
-    def __call__(self, step: str, fraction: float, message: str) -> None:
+    def __call__(self, step: str, fraction: float, message: str, info=None) -> None:
         import time
 
         now = time.monotonic()
@@ -173,7 +173,9 @@ def cmd_surrogate(args) -> int:
                     _settings_from(args))
     progress = TerminalProgress()
     review.run_step("intake", progress)
-    review.run_step("surrogate", progress, mps_path=out / "program.mps")
+    review.run_step("surrogate", progress)
+    if review.program_mps:
+        review.write_program(out / "program.mps")
     result = review.surrogate
     est = result.surrogate
     write_atomic(out / "rules.txt", est.export_text())

@@ -8,8 +8,10 @@ with identical results and nothing recomputed.
 from __future__ import annotations
 
 import datetime as _dt
+import gzip
 import json
 import os
+import tempfile
 import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field, replace
@@ -37,7 +39,8 @@ FORMAT = "grovewise-review/1"
 PROXIMITY_MAX_ROWS = 3000  # proximity is quadratic in rows: larger data is sampled (seeded)
 PAIRS_KEPT = 2000  # closest pairs kept with the results for the Proximity page and report
 
-Progress = Callable[[str, float, str], None]  # (step, fraction 0..1, message)
+# (step, fraction 0..1, message[, solver progress object while solving])
+Progress = Callable[..., None]
 
 
 class CancelledError(GrovewiseError):
@@ -198,6 +201,7 @@ class Review:
         self.holdout_data: Dataset | None = None
         self.results: dict[str, object] = {}
         self.timings: dict[str, float] = {}
+        self.program_mps: bytes | None = None  # gzip of the surrogate's program, as MPS
         self.created_at = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
         self._lock = threading.Lock()
 
@@ -239,9 +243,8 @@ class Review:
         return self
 
     def run_step(self, step: str, progress: Progress | None = None,
-                 cancel: threading.Event | None = None, mps_path=None) -> object:
-        """Run one step (its prerequisites must have run). ``mps_path``: for the surrogate
-        step, also write the program HiGHS solves to this MPS file."""
+                 cancel: threading.Event | None = None) -> object:
+        """Run one step (its prerequisites must have run)."""
         from time import perf_counter
 
         report = progress or (lambda *_: None)
@@ -251,7 +254,7 @@ class Review:
         report(step, 0.0, f"{step}: starting")
         start = perf_counter()
         runner = getattr(self, f"_run_{step}")
-        result = runner(report, cancel, mps_path) if step == "surrogate" else runner(report)
+        result = runner(report, cancel) if step == "surrogate" else runner(report)
         with self._lock:
             self.results[step] = result
             self.timings[step] = perf_counter() - start
@@ -373,7 +376,7 @@ class Review:
         """``X`` with missing values replaced by :meth:`fill_values`."""
         return np.where(np.isnan(X), self.fill_values()[None, :], X)
 
-    def _run_surrogate(self, report: Progress, cancel: threading.Event | None, mps_path=None):
+    def _run_surrogate(self, report: Progress, cancel: threading.Event | None):
         from .surrogate import mimic
         from .surrogate.solver import Cancel
 
@@ -387,15 +390,30 @@ class Review:
             best = "" if info.incumbent is None else f"incumbent {info.incumbent:.5f}"
             bound = "" if info.bound is None else f", bound {info.bound:.5f}"
             frac = min(0.99, info.elapsed / max(st.time_limit, 1e-9))
-            report("surrogate", frac, f"{info.stage}: {info.elapsed:.1f} s, {best}{bound}{gap}")
+            report("surrogate", frac, f"{info.stage}: {info.elapsed:.1f} s, {best}{bound}{gap}",
+                   info)
 
-        return mimic(self.forest, self.filled(X), depth=st.depth,
-                     proximity_threshold=st.proximity_threshold,
-                     holdout=held if held.size else None,
-                     max_features_per_split=st.max_features_per_split, alpha=st.alpha,
-                     time_limit=st.time_limit, node_limit=st.node_limit,
-                     random_state=st.seed, forbidden_features=forbidden or None,
-                     progress=on_progress, cancel=stop, mps_path=mps_path)
+        with tempfile.TemporaryDirectory() as scratch:
+            program = Path(scratch) / "program.mps"
+            result = mimic(self.forest, self.filled(X), depth=st.depth,
+                           proximity_threshold=st.proximity_threshold,
+                           holdout=held if held.size else None,
+                           max_features_per_split=st.max_features_per_split, alpha=st.alpha,
+                           time_limit=st.time_limit, node_limit=st.node_limit,
+                           random_state=st.seed, forbidden_features=forbidden or None,
+                           progress=on_progress, cancel=stop, mps_path=program)
+            self.program_mps = gzip.compress(program.read_bytes(), mtime=0) \
+                if program.is_file() else None
+        return result
+
+    def write_program(self, path) -> Path:
+        """Write the program HiGHS solved in the surrogate step (on its sample) as MPS."""
+        from .report.atomic import write_atomic
+
+        if not getattr(self, "program_mps", None):
+            raise SettingError("no program to write: the surrogate step did not reach the "
+                               "program stage (run it with a longer time limit).")
+        return write_atomic(Path(path), gzip.decompress(self.program_mps))
 
     def _run_cases(self, report: Progress) -> CasesResult:
         allX, held = self._surrogate_rows()
@@ -432,6 +450,8 @@ class Review:
             "holdout_data": self.holdout_data,
             "results": self.results,
             "timings": self.timings,
+            "program_mps": None if self.program_mps is None else
+            np.frombuffer(self.program_mps, dtype=np.uint8),
         }
 
     def save(self, folder) -> Path:
@@ -477,6 +497,8 @@ class Review:
         review.holdout_data = state["holdout_data"]
         review.results = state["results"]
         review.timings = state["timings"]
+        mps = state.get("program_mps")
+        review.program_mps = None if mps is None else mps.tobytes()
         review.created_at = state["created_at"]
         review._lock = threading.Lock()
         return review

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from . import figures_anatomy as fa
+from ..cautions import CAUTIONS
 from ..hashing import sha256_of
 from .atomic import write_atomic
 from .document import (Code, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table,
@@ -25,13 +26,6 @@ from .html_report import render_html
 from .manifest import build_manifest
 from .pdf_report import render_pdf
 
-CAUTIONS = (
-    "A surrogate tree is an approximation of the model, and the model is not a diagnosis, a "
-    "credit decision or an insurance decision. Fidelity is measured on the data given to this "
-    "review, and only there. The rules describe the model; they do not replace the model's "
-    "own validation (discrimination, calibration, stability, fairness, data quality). Use "
-    "follows local regulation and licensed professional practice."
-)
 DECISION_TEXT = {"pending": "not yet decided", "approve": "approved",
                  "approve_with_conditions": "approved with conditions", "reject": "rejected"}
 MAX_CASE_ROWS = 12

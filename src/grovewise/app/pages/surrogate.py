@@ -389,15 +389,10 @@ class SurrogatePage(Page):
 
     # ------------------------------------------------------------------ exports
     def _mps_writer(self):
-        res = self.review.surrogate if self.review is not None else None
-        if res is None:
+        review = self.review
+        if review is None or review.surrogate is None or not review.program_mps:
             return None
-        for obj, name in ((res, "write_mps"), (res, "export_mps"), (res.surrogate, "export_mps"),
-                          (res.surrogate, "write_mps")):
-            fn = getattr(obj, name, None)
-            if callable(fn):
-                return fn
-        return None
+        return review.write_program
 
     def _update_exports(self) -> None:
         has = self.review is not None and self.review.surrogate is not None
@@ -406,7 +401,7 @@ class SurrogatePage(Page):
         if has and self._mps_writer() is None:
             b = self.export_buttons["mps"]
             b.setEnabled(False)
-            b.setToolTip("This version's surrogate result has no MPS writer yet.")
+            b.setToolTip("The solve ended before the program stage; there is no program to export.")
 
     def ask_export(self, fmt: str) -> None:
         filters = {"png": "PNG image (*.png)", "svg": "SVG drawing (*.svg)",
