@@ -18,6 +18,7 @@ from .errors import GrovewiseError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 3
+DEMO_TIME_LIMIT = 30.0  # seconds for the demo's solve: the sample reaches its best tree sooner
 
 
 def _say(message: str, stream=None) -> None:
@@ -316,7 +317,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="folder for the report (default grovewise_demo)")
     p.add_argument("--no-window", action="store_true", help="do not open the window")
     _add_solve_args(p)
-    p.set_defaults(func=cmd_demo)
+    p.set_defaults(func=cmd_demo, time_limit=DEMO_TIME_LIMIT)
 
     p = sub.add_parser("reproduce", help="re-run a review and say whether it matches")
     p.add_argument("manifest", metavar="MANIFEST", help="the manifest.json of a review")

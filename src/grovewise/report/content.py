@@ -101,7 +101,7 @@ def _summary(doc: Document, review) -> None:
     if sur.note:
         doc.add(Paragraph(sur.note, "note"))
     doc.add(Paragraph(CAUTIONS, "caution"))
-    doc.add(Figure(surrogate_tree_figure(sur.surrogate), width=0.85,
+    doc.add(Figure(surrogate_tree_figure(sur.surrogate, width=7.5), width=0.85,
                    caption="The surrogate's rules (yes to the left); details in the Surrogate "
                            "section"))
 
@@ -124,7 +124,7 @@ def _top_features(review, k: int) -> list[str]:
 
 def _intake(doc: Document, review) -> None:
     intake, data = review.intake, review.intake.data_summary
-    doc.add(PageBreak(), Heading("Intake"))
+    doc.add(Heading("Intake"))
     files = [["model", str(review.inputs.model), intake.model_sha256],
              ["data", str(review.inputs.data), intake.data_sha256]]
     if review.inputs.holdout:
@@ -184,7 +184,7 @@ def _anatomy(doc: Document, review) -> None:
 def _proximity(doc: Document, review) -> None:
     prox = review.proximity
     doc.add(Heading("Proximity: which records the ensemble treats alike"))
-    doc.add(Paragraph(prox.definition))
+    doc.add(Paragraph(f"Proximity of two records: the {prox.definition}."))
     counts = prox.counts
     doc.add(Table(["proximity at least", "pairs", "share of all pairs"],
                   [[float(t), int(c), float(c) / max(counts.n_total_pairs, 1)]
@@ -210,7 +210,8 @@ def _surrogate(doc: Document, review) -> None:
         "ensemble by the ensemble's confidence, beside a greedy tree (CART) of the same "
         "depth fit on the same targets and weights. Coefficients are rounded for reading and "
         "the rounded tree is the one scored."))
-    doc.add(Figure(surrogate_tree_figure(est), caption="The surrogate tree", width=1.0))
+    doc.add(Figure(surrogate_tree_figure(est, width=7.5), caption="The surrogate tree",
+                   width=1.0))
     doc.add(Code(est.rules_, caption="The rules in the data's units"))
     fid, wfid = sur.fidelity, sur.weighted_fidelity
     rows = []
@@ -242,10 +243,11 @@ def _surrogate(doc: Document, review) -> None:
         ("Read-back check", json.dumps(cert.get("readback"), default=str)),
         ("Solver", f"{cert.get('solver')} {cert.get('versions', {}).get('highs', '')}".strip()),
     ]))
-    doc.add(Table(["stage", "objective", "weighted fidelity", "time (s)"],
-                  [[s.get("stage"), s.get("objective"), s.get("fidelity"), s.get("time")]
-                   for s in sur.stages], caption="Candidates by stage (the best one is kept)",
-                  formats=[None, ".5f", ".4f", ".2f"]))
+    doc.add(Table(["stage", "objective", "weighted fidelity", "ready at (s)", "note"],
+                  [[s.get("name"), s.get("objective"), s.get("fidelity"), s.get("elapsed"),
+                    s.get("note") or ""] for s in sur.stages],
+                  caption="Candidates by stage, each scored on every training row (the best "
+                          "one is kept)", formats=[None, ".5f", ".4f", ".2f", None]))
     doc.add(Paragraph("The MIP gap of such programs usually stays large within the time limit "
                       "(the big-M relaxation is weak), so the guarantee that matters is the "
                       "fidelity measured above, on training and holdout rows.", "note"))
