@@ -253,3 +253,23 @@ def test_review_command_line(tmp_path, capsys):
     assert main(["review", str(paths["forest"]), str(paths["data"]), "--out", str(tmp_path / "q"),
                  "--depth", "9"]) == 2
     assert "depth" in capsys.readouterr().err
+
+
+def test_node_limited_review_reproduces_exactly(tmp_path):
+    """With a node limit (and time to spare) every digest, the surrogate's included, is equal."""
+    from sklearn.datasets import load_breast_cancer  # Wolberg et al., UCI, bundled
+
+    data = load_breast_cancer(as_frame=True)
+    model = RandomForestClassifier(30, max_depth=4, random_state=0).fit(data.data, data.target)
+    sio.dump(model, tmp_path / "bc.skops")
+    data.frame.to_csv(tmp_path / "bc.csv", index=False)
+    review = Review(ReviewInputs(tmp_path / "bc.skops", tmp_path / "bc.csv", target="target"),
+                    ReviewSettings(depth=2, time_limit=120, node_limit=10, permutation_repeats=1))
+    review.run()
+    files = export_report(review, tmp_path / "r", formats=("html",))
+    manifest = json.loads(files["manifest"].read_text())
+    assert manifest["deterministic"] is True
+    verdict = reproduce(files["manifest"])
+    assert verdict.passed, verdict.text()
+    names = [name for name, _, _ in verdict.checks]
+    assert "surrogate results" in names and "cases results" in names

@@ -25,7 +25,8 @@ LIBRARIES = ("grovewise", "numpy", "scipy", "scikit-learn", "xgboost", "xgboost-
 # that a re-run elsewhere, on the same files, gives the same digests.
 UNDIGESTED_KEYS = frozenset({"time", "seconds", "elapsed", "wall_time", "build_time",
                              "solve_time", "time_to_first", "timings", "started_at",
-                             "finished_at", "trace", "source", "file", "path"})
+                             "finished_at", "trace", "duration", "first_candidate_time",
+                             "compile_time", "total_time", "source", "file", "path"})
 
 
 def library_versions() -> dict[str, str]:
