@@ -339,12 +339,19 @@ def test_export_writes_the_report(win, tmp_path):
     assert sign.update_preview()
 
 
-def test_surrogate_exports_png_svg_json(win, tmp_path):
+def test_surrogate_exports_png_svg_json_mps(win, tmp_path):
+    import json
+
+    import highspy
+
     page = win.pages["surrogate"]
     png = page.export("png", tmp_path / "tree.png")
     svg = page.export("svg", tmp_path / "tree.svg")
     js = page.export("json", tmp_path / "tree.json")
-    import json
+    mps = page.export("mps", tmp_path / "program.mps")
+    h = highspy.Highs()  # HiGHS itself reads the exported program
+    h.setOptionValue("output_flag", False)
+    assert h.readModel(str(mps)) == highspy.HighsStatus.kOk and h.getNumCol() > 0
 
     assert QImage(str(png)).width() > 600
     assert svg.read_text(encoding="utf-8").lstrip().startswith("<?xml")

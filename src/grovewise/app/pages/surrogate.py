@@ -431,7 +431,8 @@ class SurrogatePage(Page):
             else:
                 writer = self._mps_writer()
                 if writer is None:
-                    self.window_.say("MPS export needs a newer surrogate result.")
+                    self.window_.say("No program to export: the solve ended before the "
+                                     "program stage.")
                     return None
                 writer(str(path))
                 out = path
