@@ -12,7 +12,6 @@ import subprocess
 import sys
 import textwrap
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -20,7 +19,6 @@ import pytest
 import skops.io as sio
 from sklearn.ensemble import RandomForestClassifier
 
-import grovewise as gw
 from grovewise.cli import main
 from grovewise.report.content import export_report
 from grovewise.reproduce import reproduce

@@ -12,12 +12,10 @@ from __future__ import annotations
 import csv
 import io
 import json
-import math
 import re
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
-import numpy as np
 
 from ..analysis.flags import check_flags, flag_report
 from ..analysis.importance import (importance_comparison, impurity_importance,
@@ -30,25 +28,13 @@ from ..forest import LINK_SOFTMAX, Forest
 from . import figures_anatomy as figs
 from .atomic import write_atomic
 from .figure_files import check_dpi, check_formats, save_figure
+from ..plain import to_plain
 
 PAIR_THRESHOLDS = (0.5, 0.6, 0.7, 0.8, 0.9, 0.95, 0.99, 1.0)
 
 
-def _json_safe(value):
-    """``value`` with numpy scalars as Python numbers and NaN / infinity as None."""
-    if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_safe(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def write_json(path: Path, obj: dict) -> Path:
-    return write_atomic(path, json.dumps(_json_safe(obj), indent=1, allow_nan=False) + "\n")
+    return write_atomic(path, json.dumps(to_plain(obj), indent=1, allow_nan=False) + "\n")
 
 
 def write_csv(path: Path, rows: Sequence[dict]) -> Path:
@@ -57,7 +43,7 @@ def write_csv(path: Path, rows: Sequence[dict]) -> Path:
     if rows:
         writer = csv.DictWriter(buf, fieldnames=list(rows[0]), lineterminator="\n")
         writer.writeheader()
-        writer.writerows(_json_safe(list(rows)))
+        writer.writerows(to_plain(list(rows)))
     return write_atomic(path, buf.getvalue())
 
 

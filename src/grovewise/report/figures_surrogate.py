@@ -11,7 +11,6 @@ from collections.abc import Sequence
 
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.patches import FancyBboxPatch
 
 INK = "#1f2a33"
 MUTED = "#66737d"

@@ -11,12 +11,12 @@ import hashlib
 import json
 import platform
 import sys
-from dataclasses import asdict, is_dataclass
 from importlib import metadata
 
 import numpy as np
 
 from ..storage import encode
+from ..plain import to_plain
 
 FORMAT = "grovewise-manifest/1"
 LIBRARIES = ("grovewise", "numpy", "scipy", "scikit-learn", "xgboost", "xgboost-cpu", "pyomo",
@@ -76,24 +76,6 @@ def _collect_array_keys(tree, out: set) -> None:
             _collect_array_keys(v, out)
 
 
-def _plain(obj):
-    if is_dataclass(obj):
-        obj = asdict(obj)
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    if hasattr(obj, "__fspath__"):
-        return str(obj)
-    if isinstance(obj, float) and not np.isfinite(obj):
-        return None
-    return obj
-
-
 def build_manifest(review, report_files: dict | None = None) -> dict:
     """The manifest of a review that has run (a ``grovewise.review.Review``)."""
     from .. import __version__
@@ -105,7 +87,7 @@ def build_manifest(review, report_files: dict | None = None) -> dict:
         return None if path is None else {"path": str(path), "sha256": sha}
 
     surrogate = review.surrogate
-    certificate = _plain(getattr(surrogate, "certificate", None)) if surrogate else None
+    certificate = to_plain(getattr(surrogate, "certificate", None)) if surrogate else None
     return {
         "format": FORMAT,
         "created_at": review.created_at,
@@ -117,15 +99,15 @@ def build_manifest(review, report_files: dict | None = None) -> dict:
             "target": inp.target,
             "trusted": inp.trusted,
         },
-        "settings": _plain(st),
+        "settings": to_plain(st),
         "seeds": {"review": st.seed, "holdout_split": st.seed, "permutation_importance": st.seed,
                   "proximity_sample": st.seed, "surrogate": st.seed},
         "deterministic": deterministic(review),
         "versions": library_versions(),
         "certificate": certificate,
-        "fidelity": _plain(getattr(surrogate, "fidelity", None)) if surrogate else None,
+        "fidelity": to_plain(getattr(surrogate, "fidelity", None)) if surrogate else None,
         "digests": {step: digest(result) for step, result in review.results.items()},
-        "reviewer": _plain(review.reviewer),
+        "reviewer": to_plain(review.reviewer),
         "report_files": report_files or {},
     }
 

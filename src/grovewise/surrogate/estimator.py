@@ -12,6 +12,7 @@ from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from ..errors import SettingError
+from ..plain import to_plain
 from .pipeline import PipelineSettings, run_pipeline
 from .program import ROUTINGS
 from .rules import round_tree, tree_text
@@ -346,8 +347,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             "leaves": leaves, "tree_scaled": self.tree_.to_dict(),
             "status": self.status_, "winner": self.winner_, "objective": self.objective_,
             "bound": self.bound_, "mip_gap": self.mip_gap_, "fidelity": self.fidelity_,
-            "exact_fidelity": self.exact_fidelity_, "params": _jsonable(self.get_params()),
-            "pipeline": _jsonable(self.result_.to_dict()),
+            "exact_fidelity": self.exact_fidelity_, "params": to_plain(self.get_params()),
+            "pipeline": to_plain(self.result_.to_dict()),
         }
 
     def export_json(self, path=None) -> str:
@@ -364,18 +365,3 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         return tags
 
 
-def _jsonable(obj):
-    """Numpy scalars and arrays inside ``obj`` as plain Python values."""
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, float) and not np.isfinite(obj):
-        return None
-    if isinstance(obj, (str, int, float, bool)) or obj is None:
-        return obj
-    return str(obj)

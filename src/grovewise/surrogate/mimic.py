@@ -18,7 +18,8 @@ from ..analysis.proximity import proximity_pairs
 from ..analysis.usage import depth_usage
 from ..errors import DataError, SettingError
 from ..forest import Forest
-from .estimator import PENALTY_EPS, ObliqueSurrogate, _jsonable
+from ..plain import to_plain
+from .estimator import PENALTY_EPS, ObliqueSurrogate
 from .solver import versions
 from .tree import n_leaves
 
@@ -82,7 +83,7 @@ class MimicResult:
     holdout_rows: np.ndarray = field(repr=False)
 
     def to_dict(self) -> dict:
-        return _jsonable({
+        return to_plain({
             "kind": "surrogate_result", "fidelity": self.fidelity,
             "weighted_fidelity": self.weighted_fidelity, "certificate": self.certificate,
             "leaves": self.leaves, "sample_size": self.sample_size, "stages": self.stages,
@@ -172,7 +173,7 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
         note=note, proximity=prox,
         settings={"depth": depth, "proximity_threshold": proximity_threshold,
                   "usage_floor": floor, "usage_weight": weight_kind,
-                  "forbidden_features": _plain_list(forbidden), **_jsonable(params),
+                  "forbidden_features": _plain_list(forbidden), **to_plain(params),
                   "usage_shares": f.tolist()},
         train_rows=train, holdout_rows=hold)
 
@@ -289,7 +290,7 @@ def _leaves(est, X, yhat, train, hold) -> list[dict]:
     pred = est.predict(X)
     out = []
     for l in range(n_leaves(est.depth)):
-        row = {"leaf": l, "class": _jsonable(est.classes_[int(est.tree_.leaf_class[l])])}
+        row = {"leaf": l, "class": to_plain(est.classes_[int(est.tree_.leaf_class[l])])}
         for part, rows in (("train", train), ("holdout", hold)):
             here = rows[leaf[rows] == l]
             row[f"{part}_rows"] = int(here.size)

@@ -27,7 +27,7 @@ from .greedy import fit_greedy, oblique_from_greedy
 from .local_search import SearchSettings, improve, refit_offsets, separated_groups
 from .program import ProgramData, build_program, choose_margin
 from .sample import Sample, auto_sample_size, build_sample, union_find_groups
-from .solver import Cancel, Progress, SolveResult, compile_program, solve
+from .solver import Cancel, Progress, SolveResult, compile_program, solve, write_compiled_mps
 from .tree import (ObliqueTree, Scaling, objective, trivial_tree, weighted_disagreement,
                    with_majority_classes)
 
@@ -234,7 +234,7 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         cp = compile_program(prog)
         build_time = prog.build_time + cp.compile_time
         if st.mps_path:
-            prog.write_mps(st.mps_path)
+            write_compiled_mps(cp, st.mps_path)
         left = deadline - time.perf_counter() - reserve
         if left < 0.5:
             note = f"skipped: {left:.1f} s left after building the program"
