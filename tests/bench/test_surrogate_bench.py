@@ -31,6 +31,8 @@ from grovewise.surrogate.program import ProgramData, build_program, choose_margi
 from grovewise.surrogate.solver import compile_program, solve
 from grovewise.surrogate.tree import Scaling
 
+from .common import print_table
+
 pytestmark = pytest.mark.bench
 
 TIME = float(os.environ.get("GROVEWISE_BENCH_TIME", "60"))
@@ -77,14 +79,6 @@ def _rows_to_run():
                     yield name, ds, mname, depth
 
 
-def _print_table(title, header, rows):
-    print(f"\n{title}")
-    widths = [max(len(str(h)), *(len(str(r[i])) for r in rows)) for i, h in enumerate(header)]
-    print("  ".join(str(h).ljust(w) for h, w in zip(header, widths)))
-    for r in rows:
-        print("  ".join(str(v).ljust(w) for v, w in zip(r, widths)))
-
-
 def test_surrogate_panel():
     header = ["setting", "greedy_holdout", "surrogate_holdout", "diff_points", "winner",
               "gap", "first_candidate_s", "build_s", "solve_s", "build/solve", "sample",
@@ -118,7 +112,7 @@ def test_surrogate_panel():
                 res.weighted_fidelity["greedy"]["train"] - 1e-12:
             broken.append(name)
         print(f"  done {name} in {total:.1f} s", flush=True)
-    _print_table(f"Surrogate vs greedy, holdout fidelity ({TIME:.0f} s per mimic)", header, rows)
+    print_table(f"Surrogate vs greedy, holdout fidelity ({TIME:.0f} s per mimic)", header, rows)
     if diffs_d2:
         mean = float(np.mean(diffs_d2))
         print(f"mean difference at depth 2: {mean:+.2f} points over {len(diffs_d2)} rows "
@@ -170,7 +164,7 @@ def test_routing_forms():
             a, b = out["node"][fig], out["leaf"][fig]
             ratio = (a / b) if (a is not None and b) else float("nan")
             rows.append([f"breast_cancer n={n} d=2 k=2", fig, _f(a), _f(b), f"{ratio:.3f}"])
-    _print_table(f"Routing forms ({min(TIME, 60.0):.0f} s each, warm start from CART)",
+    print_table(f"Routing forms ({min(TIME, 60.0):.0f} s each, warm start from CART)",
                  header, rows)
 
 
@@ -198,4 +192,4 @@ def test_readability_defaults():
                 rows.append([ds, k, alpha, f"{s:.3f}", f"{g:.3f}", f"{100 * (s - g):+.1f}",
                              f"{np.mean(per) if per else 0:.2f}", len(tree.used_features())])
                 print(f"  done {ds} k={k} alpha={alpha}", flush=True)
-    _print_table("Readability: depth 2, random forest", header, rows)
+    print_table("Readability: depth 2, random forest", header, rows)
