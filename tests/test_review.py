@@ -271,3 +271,12 @@ def test_node_limited_review_reproduces_exactly(tmp_path):
     assert verdict.passed, verdict.text()
     names = [name for name, _, _ in verdict.checks]
     assert "surrogate results" in names and "cases results" in names
+
+
+def test_demo_window_failure_costs_a_message_not_the_review(tmp_path, capsys):
+    """When the window cannot open, the demo says what to install and still succeeds."""
+    from grovewise.cli import XCB_PACKAGES, _open_window_process
+
+    assert _open_window_process(tmp_path / "no_review_here") == 0
+    err = " ".join(capsys.readouterr().err.split())
+    assert "could not open" in err and XCB_PACKAGES.split()[0] in err

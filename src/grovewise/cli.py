@@ -151,12 +151,32 @@ def cmd_demo(args) -> int:
     review, files = _run_review(inputs, _settings_from(args), args.out)
     if args.no_window:
         return 0
-    from .app.launch import has_display, run_window
+    from .app.launch import has_display
 
     if not has_display():
         print("no display found: the window was not opened (the report is written above).")
         return 0
-    return run_window(review=review)
+    return _open_window_process(Path(args.out) / "review")
+
+
+# Qt's desktop plugin (xcb) needs these Debian/Ubuntu packages; without them Qt aborts.
+XCB_PACKAGES = ("libxcb-cursor0 libxcb-icccm4 libxcb-image0 libxcb-keysyms1 libxcb-randr0 "
+                "libxcb-render-util0 libxcb-shape0 libxcb-xinerama0 libxcb-xkb1 "
+                "libxkbcommon-x11-0")
+
+
+def _open_window_process(review_dir: Path) -> int:
+    """Open the window on a saved review in a child process, so that a display Qt cannot use
+    (it aborts the process) costs a message, not the review already written."""
+    import subprocess
+
+    code = subprocess.run([sys.executable, "-m", "grovewise.cli", "window", "--review",
+                           str(review_dir)]).returncode
+    if code != 0:
+        _say(f"the window could not open on this display (exit {code}); the report and the "
+             f"saved review are written. On Debian or Ubuntu, Qt's desktop plugin needs: "
+             f"apt-get install {XCB_PACKAGES}. Then run: grovewise window --review {review_dir}")
+    return 0
 
 
 def cmd_surrogate(args) -> int:
@@ -213,6 +233,10 @@ def cmd_window(args) -> int:
     """The desktop window."""
     from .app.launch import run_window
 
+    if args.review:
+        from .review import Review
+
+        return run_window(review=Review.open(args.review), capture_dir=args.capture)
     if not args.sample and not (args.model and args.data):
         if args.model or args.data:
             from .errors import SettingError
@@ -329,6 +353,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("model", metavar="MODEL", nargs="?", help="model file")
     p.add_argument("data", metavar="DATA", nargs="?", help="review data")
     p.add_argument("--sample", action="store_true", help="open the bundled sample")
+    p.add_argument("--review", metavar="DIR", help="open a saved review (a folder)")
     p.add_argument("--target", help="name of the target column in DATA")
     p.add_argument("--capture", metavar="DIR",
                    help="go through every page, save one PNG per page there, and exit")

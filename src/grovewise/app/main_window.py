@@ -238,6 +238,9 @@ class MainWindow(QMainWindow):
         snapshot = dataclasses.asdict(review.settings)
         self.ran_with = {s: copy.deepcopy(snapshot) for s in STEPS if review.done(s)}
         self.failed_steps = set()
+        done = [s for s in STEPS if review.done(s)]
+        self.say(f"{Path(review.inputs.model).name} on {Path(review.inputs.data).name}: "
+                 + (f"{len(done)} of {len(STEPS)} steps done." if done else "no step run yet."))
         self.show_review()
         self.review_changed.emit()
 
