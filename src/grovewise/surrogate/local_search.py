@@ -70,9 +70,7 @@ def improve(tree: ObliqueTree, Xs: np.ndarray, y: np.ndarray, w: np.ndarray, n_c
             cand = _improve_node(best, t, Xs, y, w, count, n_classes, settings, group=group)
             if cand is None:
                 continue
-            cand = with_majority_classes(cand, Xs, y, w, n_classes)
-            cs = objective(cand, Xs, y, w, settings.alpha, settings.penalty)
-            cv = separated_groups(cand, Xs, group)
+            cand, cs, cv = _scored(cand, Xs, y, w, n_classes, settings, group)
             if cv < viol or (cv == viol and cs < score - 1e-12):
                 best, score, viol, improved = cand, cs, cv, True
         if not improved:
@@ -105,15 +103,20 @@ def refit_offsets(tree: ObliqueTree, Xs: np.ndarray, y: np.ndarray, w: np.ndarra
                              group=group)
         if cand is None:
             continue
-        cand = with_majority_classes(cand, Xs, y, w, n_classes)
-        cs = objective(cand, Xs, y, w, settings.alpha, settings.penalty)
-        cv = separated_groups(cand, Xs, group)
+        cand, cs, cv = _scored(cand, Xs, y, w, n_classes, settings, group)
         if cv < viol or (cv == viol and cs < score - 1e-12):
             best, score, viol = cand, cs, cv
     return best, score
 
 
 # ---------------------------------------------------------------------------- one node
+def _scored(cand: ObliqueTree, Xs, y, w, n_classes: int, settings, group):
+    """A candidate with its leaves' majority classes, its objective and its broken groups."""
+    cand = with_majority_classes(cand, Xs, y, w, n_classes)
+    return (cand, objective(cand, Xs, y, w, settings.alpha, settings.penalty),
+            separated_groups(cand, Xs, group))
+
+
 def _reach(tree: ObliqueTree, Xs: np.ndarray, t: int) -> np.ndarray:
     """Mask of the points that reach node t."""
     proj = Xs @ tree.coef.T
