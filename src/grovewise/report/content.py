@@ -23,7 +23,7 @@ from .document import (Code, Document, Figure, Heading, KeyValues, PageBreak, Pa
                        Title)
 from .figures_surrogate import surrogate_tree_figure
 from .html_report import render_html
-from .manifest import build_manifest
+from .manifest import build_manifest, deterministic, library_versions
 from .pdf_report import render_pdf
 
 DECISION_TEXT = {"pending": "not yet decided", "approve": "approved",
@@ -292,8 +292,6 @@ def _limitations(doc: Document, review) -> None:
 
 def _reproduce(doc: Document, review) -> None:
     st = review.settings
-    from .manifest import deterministic, library_versions
-
     doc.add(Heading("How to reproduce this review"))
     doc.add(Paragraph(
         "The manifest (manifest.json beside this report) records the files' sha256, every "
