@@ -372,6 +372,18 @@ def test_permutation_importance_equals_sklearn_on_the_original_model(wine):
     ref_fid = permutation_importance(rf, X, rf.predict(X), n_repeats=2, random_state=1)
     np.testing.assert_array_equal(fid.values, ref_fid.importances)
     assert fid.target == "model predictions" and fid.baseline_score == 1.0
+    # The standard error the rows imply, recomputed here from its definition: each row's
+    # drop in agreement averaged over the repeats, its standard deviation over sqrt(n).
+    hit0 = rf.predict(X) == y
+    Xv = np.asarray(X, dtype=np.float64)
+    seed = np.random.RandomState(7).randint(np.iinfo(np.int32).max + 1)
+    for j in (0, 6):
+        rs, idx, Xp, drop = np.random.RandomState(seed), np.arange(len(y)), Xv.copy(), 0.0
+        for _ in range(3):
+            rs.shuffle(idx)
+            Xp[:, j] = Xp[idx, j]
+            drop = drop + (hit0.astype(float) - (rf.predict(Xp) == y)) / 3
+        assert res.se[j] == pytest.approx(np.std(drop, ddof=1) / np.sqrt(len(y)), abs=1e-12)
 
 
 def test_permutation_importance_progress_settings_and_cancel(wine):
@@ -380,7 +392,7 @@ def test_permutation_importance_progress_settings_and_cancel(wine):
     calls = []
     permutation_importance_result(forest, X, y, n_repeats=2, progress=lambda d, t: calls.append(
         (d, t)))
-    assert calls[-1] == (2 + 13 * 2, 2 + 13 * 2)
+    assert calls[-1] == (1 + 13 * 2, 1 + 13 * 2)
 
     class Stop(Exception):
         pass

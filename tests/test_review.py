@@ -270,7 +270,7 @@ def test_node_limited_review_reproduces_exactly(tmp_path):
     verdict = reproduce(files["manifest"])
     assert verdict.passed, verdict.text()
     names = [name for name, _, _ in verdict.checks]
-    assert "surrogate results" in names and "cases results" in names
+    assert "re-fit surrogate results" in names and "re-fit cases results" in names
 
 
 def test_demo_window_failure_costs_a_message_not_the_review(tmp_path, capsys):

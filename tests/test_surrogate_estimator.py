@@ -111,7 +111,9 @@ def test_shortest_between():
 def test_must_link_pairs_share_a_leaf():
     X, y = load_wine(return_X_y=True)
     pairs = np.array([[0, 59], [59, 130], [10, 140]])  # rows of different cultivars
-    est = ObliqueSurrogate(depth=2, time_limit=2.0, random_state=0).fit(X, y, must_link=pairs)
+    # a node limit: every stage stops on counts, so a busy machine cannot cut the search short
+    est = ObliqueSurrogate(depth=2, time_limit=60.0, node_limit=50, random_state=0).fit(
+        X, y, must_link=pairs)
     leaf = est.apply(X)
     assert leaf[0] == leaf[59] == leaf[130] and leaf[10] == leaf[140]
 
@@ -120,7 +122,7 @@ def test_allowed_features_and_penalty_are_respected():
     X, y = load_wine(return_X_y=True)
     allowed = np.zeros(X.shape[1], dtype=bool)
     allowed[[0, 6, 9, 12]] = True
-    est = ObliqueSurrogate(depth=2, time_limit=2.0, random_state=0).fit(
+    est = ObliqueSurrogate(depth=2, time_limit=60.0, node_limit=50, random_state=0).fit(
         X, y, allowed_features=allowed)
     assert set(est.tree_.used_features()) <= {0, 6, 9, 12}
 

@@ -6,8 +6,10 @@ The public API (see the project's API contract): intake (``load_model``, ``from_
 
 from .analysis import (depth_usage, impurity_importance, position_usage, proximity,
                        proximity_pairs)
-from .errors import (DataError, GrovewiseError, ModelFileError, SettingError, UnsafeModelError,
-                     UnsupportedModelError)
+from .analysis.contributions import (Contributions, contributions, interaction_ranking,
+                                     interactions)
+from .errors import (CancelledError, DataError, GrovewiseError, ModelFileError, SettingError,
+                     UnsafeModelError, UnsupportedModelError)
 from .forest import Forest, Tree
 from .loaders import Dataset, from_estimator, load_data, load_model
 from .surrogate import ObliqueSurrogate, mimic
@@ -15,8 +17,9 @@ from .surrogate import ObliqueSurrogate, mimic
 __version__ = "0.1.0"
 
 __all__ = [
-    "DataError", "Dataset", "Forest", "GrovewiseError", "ModelFileError", "ObliqueSurrogate",
-    "SettingError", "Tree",
+    "CancelledError", "Contributions", "DataError", "Dataset", "Forest", "GrovewiseError",
+    "ModelFileError", "ObliqueSurrogate", "SettingError", "Tree", "contributions",
+    "interaction_ranking", "interactions",
     "UnsafeModelError", "UnsupportedModelError", "depth_usage", "from_estimator",
     "impurity_importance", "load_data", "load_model", "mimic", "position_usage", "proximity",
     "proximity_pairs", "__version__",

@@ -69,22 +69,75 @@ def cmd_anatomy(args) -> int:
 
 
 class TerminalProgress:
-    """Progress of long steps on the terminal: one line per step, solver lines every ~2 s."""
+    """Progress of long steps on the terminal, never silent for more than ``every`` seconds.
+
+    Each line shows the step, a bar, the share done and the step's own message (a count and
+    the time left, or the solver's incumbent and bound). A watch thread repeats the latest
+    state with the seconds spent when a step has said nothing for ``every`` seconds, so a
+    long library call (reading a file, building the program) never looks like a hang. Use
+    it as a context manager to run the watch thread.
+    """
+
+    BAR = 20
 
     def __init__(self, stream=None, every: float = 2.0) -> None:
         self.stream = stream or sys.stderr
         self.every = every
         self._last = 0.0
+        self._state: tuple[str, float, str] | None = None
+        self._fresh = False  # a message came since the last line
+        self._step_start = 0.0
+        self._lock = __import__("threading").Lock()
+        self._stop = None
 
     def __call__(self, step: str, fraction: float, message: str, info=None) -> None:
         import time
 
         now = time.monotonic()
-        final = fraction <= 0.0 or fraction >= 1.0
-        if not final and now - self._last < self.every:
-            return
+        with self._lock:
+            if self._state is None or self._state[0] != step or fraction <= 0.0:
+                self._step_start = now
+            self._state = (step, fraction, str(message))
+            self._fresh = True
+            final = fraction <= 0.0 or fraction >= 1.0
+            if not final and now - self._last < self.every:
+                return
+            self._print(step, fraction, str(message), now)
+
+    def _print(self, step: str, fraction: float, message: str, now: float) -> None:
         self._last = now
-        print(f"  [{step:>9}] {message}", file=self.stream, flush=True)
+        self._fresh = False
+        fraction = max(0.0, min(1.0, float(fraction)))
+        filled = int(round(self.BAR * fraction))
+        bar = "#" * filled + "." * (self.BAR - filled)
+        print(f"  [{step:>9}] [{bar}] {100 * fraction:3.0f}%  {message}", file=self.stream,
+              flush=True)
+
+    def _watch(self) -> None:
+        import time
+
+        while not self._stop.wait(0.25):
+            with self._lock:
+                now = time.monotonic()
+                if self._state is None or now - self._last < self.every - 0.3:
+                    continue
+                step, fraction, message = self._state
+                if fraction >= 1.0:
+                    continue
+                if not self._fresh:
+                    spent = now - self._step_start
+                    message = f"{message} (still working, {spent:.0f} s into the {step} step)"
+                self._print(step, fraction, message, now)
+
+    def __enter__(self) -> "TerminalProgress":
+        import threading
+
+        self._stop = threading.Event()
+        threading.Thread(target=self._watch, name="terminal-progress", daemon=True).start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._stop.set()
 
 
 def _settings_from(args):
@@ -94,35 +147,49 @@ def _settings_from(args):
                           alpha=args.alpha, proximity_threshold=args.proximity_threshold,
                           time_limit=args.time_limit, node_limit=args.node_limit,
                           holdout_share=args.holdout_share, seed=args.seed,
-                          flags=_parse_flags(args.flag)).validate()
+                          flags=_parse_flags(args.flag), permutation_rows=args.permutation_rows,
+                          exactness_rows=args.exactness_rows,
+                          proximity_rows=args.proximity_rows).validate()
 
 
-def _run_review(inputs, settings, out: str, reviewer=None):
+def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = None):
     """Run every step with terminal progress, save the review and write the report."""
     import time
 
-    from .report.content import export_report
-    from .review import Review
+    from .analysis.importance import reliance
+    from .batch import SAVED_REVIEW, write_review_folder
+    from .report.content import certificate_line
+    from .weak_spots import weak_spots
 
     start = time.perf_counter()
-    review = Review(inputs, settings, reviewer)
-    review.run(progress=TerminalProgress())
     folder = Path(out)
-    review.save(folder / "review")
-    files = export_report(review, folder)
+    with TerminalProgress() as progress:
+        review, files = write_review_folder(inputs, settings, folder, reviewer,
+                                            progress=progress, jobs=jobs)
     sur = review.surrogate
     fid = sur.fidelity
     print(f"review of {inputs.model} on {inputs.data}: done in {time.perf_counter() - start:.1f} s")
     print(f"  exactness     {review.intake.exactness.text()}")
     print(f"  surrogate     fidelity {fid['surrogate']['train']:.3f} train, "
-          f"{_fmt_optional(fid['surrogate']['holdout'])} holdout "
-          f"({sur.certificate['status']}, winning stage {sur.winner})")
+          f"{_fmt_optional(fid['surrogate']['holdout'])} holdout (unweighted; winning "
+          f"stage {sur.winner})")
     print(f"  greedy tree   fidelity {fid['greedy']['train']:.3f} train, "
-          f"{_fmt_optional(fid['greedy']['holdout'])} holdout")
+          f"{_fmt_optional(fid['greedy']['holdout'])} holdout (unweighted)")
+    print(f"  certificate   {certificate_line(review)}")
+    print(f"  relies on     {reliance(review.anatomy.importance).headline()}")
+    for spot in weak_spots(review):
+        _say(f"  weak spot: {spot.text}", sys.stdout)
     for kind, path in files.items():
         print(f"  {kind:<13} {path}")
-    print(f"  saved review  {folder / 'review'}")
+    print(f"  saved review  {folder / SAVED_REVIEW}")
     return review, files
+
+
+def _jobs(args) -> int:
+    """``--jobs``, checked (None or 0: every core)."""
+    from .executor import resolve_jobs
+
+    return resolve_jobs(args.jobs)
 
 
 def _fmt_optional(v) -> str:
@@ -131,13 +198,40 @@ def _fmt_optional(v) -> str:
 
 def cmd_review(args) -> int:
     """The whole review: report and manifest."""
-    from .review import ReviewInputs, Reviewer
+    from .review import ReviewInputs
 
     _warn_if_trusted(args)
     inputs = ReviewInputs(args.model, args.data, target=args.target, holdout=args.holdout,
                           trusted=args.trust)
-    reviewer = Reviewer(name=args.reviewer or "", role=args.role or "")
-    _run_review(inputs, _settings_from(args), args.out, reviewer)
+    reviewer = _reviewer_from(args)
+    _run_review(inputs, _settings_from(args), args.out, reviewer, jobs=_jobs(args))
+    return 0
+
+
+def _reviewer_from(args):
+    """The sign-off given on the command line (``--decision`` and friends), checked."""
+    import datetime as _dt
+
+    from .decision import decision_name
+    from .review import Reviewer
+
+    decision = decision_name(args.decision) if args.decision else "pending"
+    signed = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds") \
+        if decision != "pending" else ""
+    return Reviewer(name=args.reviewer or "", role=args.role or "", decision=decision,
+                    conditions=args.conditions or "", notes=args.note or "",
+                    signed_at=signed).validate()
+
+
+def cmd_decide(args) -> int:
+    """Record or change the decision on a written review folder."""
+    from .decision import record_decision
+
+    files = record_decision(args.folder, args.decision, conditions=args.conditions or "",
+                            notes=args.note, name=args.reviewer, role=args.role)
+    print(f"decision recorded in {args.folder}: {args.decision}")
+    for kind, path in files.items():
+        print(f"  {kind:<13} {path}")
     return 0
 
 
@@ -148,7 +242,7 @@ def cmd_demo(args) -> int:
 
     paths = sample_paths()
     inputs = ReviewInputs(paths["forest"], paths["data"], target=paths["target"])
-    review, files = _run_review(inputs, _settings_from(args), args.out)
+    review, files = _run_review(inputs, _settings_from(args), args.out, jobs=_jobs(args))
     if args.no_window:
         return 0
     from .app.launch import has_display
@@ -157,6 +251,25 @@ def cmd_demo(args) -> int:
         print("no display found: the window was not opened (the report is written above).")
         return 0
     return _open_window_process(Path(args.out) / "review")
+
+
+def cmd_batch(args) -> int:
+    """Many reviews from one batch file (CSV or TOML), on a local or given dask cluster."""
+    from types import SimpleNamespace
+
+    from .batch import read_batch, run_batch
+
+    for line in read_batch(args.file):
+        if line.trusted and line.problem is None:
+            _warn_if_trusted(SimpleNamespace(trust=True, model=line.model))
+
+    def on_line(count: int, total: int, outcome) -> None:
+        print(outcome.progress_text(count, total), flush=True)
+
+    result = run_batch(args.file, args.out, jobs=args.jobs, scheduler=args.scheduler,
+                       on_line=on_line)
+    print(result.summary())
+    return 0 if result.all_done else 1
 
 
 # Qt's desktop plugin (xcb) needs these Debian/Ubuntu packages; without them Qt aborts.
@@ -192,9 +305,10 @@ def cmd_surrogate(args) -> int:
     out.mkdir(parents=True, exist_ok=True)
     review = Review(ReviewInputs(args.model, args.data, target=args.target, trusted=args.trust),
                     _settings_from(args))
-    progress = TerminalProgress()
-    review.run_step("intake", progress)
-    review.run_step("surrogate", progress)
+    review.jobs = _jobs(args)
+    with TerminalProgress() as progress:
+        review.run_step("intake", progress)
+        review.run_step("surrogate", progress)
     if review.program_mps:
         review.write_program(out / "program.mps")
     result = review.surrogate
@@ -224,7 +338,8 @@ def cmd_reproduce(args) -> int:
     from .reproduce import reproduce
 
     _say(f"re-running the review of {args.manifest} ...", sys.stdout)
-    verdict = reproduce(args.manifest, trusted=args.trust, progress=TerminalProgress())
+    with TerminalProgress() as progress:
+        verdict = reproduce(args.manifest, trusted=args.trust, progress=progress)
     print(verdict.text())
     return 0 if verdict.passed else 1
 
@@ -266,6 +381,23 @@ def _add_solve_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=d.seed, help=f"seed of every random step (default {d.seed})")
     p.add_argument("--flag", action="append", metavar="FEATURE=KIND",
                    help="mark a feature protected or forbidden (repeatable)")
+    p.add_argument("--jobs", type=int, default=None, metavar="N",
+                   help="CPU cores the steps use (default: all); results do not depend on it")
+    for name, what in (("permutation_rows", "permutation importance"),
+                       ("exactness_rows", "the exactness check"),
+                       ("proximity_rows", "proximity pairs")):
+        p.add_argument(f"--{name.replace('_', '-')}", type=int, default=getattr(d, name),
+                       metavar="N", help=f"rows for {what}: larger data is sampled (seeded, "
+                       f"stratified; default {getattr(d, name):,}" +
+                       (", 0 for every row)" if name != "proximity_rows" else ")"))
+
+
+def _add_decision_args(p: argparse.ArgumentParser, required: bool = False) -> None:
+    p.add_argument("--decision", required=required,
+                   choices=["approve", "approve-with-conditions", "reject"],
+                   help="the reviewer's decision")
+    p.add_argument("--conditions", help="the conditions, for approve-with-conditions")
+    p.add_argument("--note", help="the reviewer's note, for the report")
 
 
 def _parse_flags(items) -> dict[str, str]:
@@ -333,8 +465,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="DIR", help="folder for the report")
     p.add_argument("--reviewer", help="the reviewer's name, for the report")
     p.add_argument("--role", help="the reviewer's role, for the report")
+    _add_decision_args(p)
     _add_solve_args(p)
     p.set_defaults(func=cmd_review)
+
+    p = sub.add_parser("decide", help="record or change the decision on a written review")
+    p.add_argument("folder", metavar="FOLDER", help="the --out folder of a review")
+    p.add_argument("--reviewer", help="the reviewer's name (kept if not given)")
+    p.add_argument("--role", help="the reviewer's role (kept if not given)")
+    _add_decision_args(p, required=True)
+    p.set_defaults(func=cmd_decide)
 
     p = sub.add_parser("demo", help="the review of the bundled sample")
     p.add_argument("--out", default="grovewise_demo", metavar="DIR",
@@ -342,6 +482,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-window", action="store_true", help="do not open the window")
     _add_solve_args(p)
     p.set_defaults(func=cmd_demo, time_limit=DEMO_TIME_LIMIT)
+
+    p = sub.add_parser("batch", help="many reviews listed in a CSV or TOML file")
+    p.add_argument("file", metavar="FILE", help="the batch file: one review per CSV line or "
+                   "TOML [[review]] entry (model, data, optional name, target, settings)")
+    p.add_argument("--out", required=True, metavar="DIR",
+                   help="folder for one folder per review, index.html and index.json")
+    p.add_argument("--jobs", type=int, default=None, metavar="N",
+                   help="reviews at once on a local cluster (default: one per CPU core)")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run on the dask cluster at ADDRESS (tcp://host:port) instead")
+    p.set_defaults(func=cmd_batch)
 
     p = sub.add_parser("reproduce", help="re-run a review and say whether it matches")
     p.add_argument("manifest", metavar="MANIFEST", help="the manifest.json of a review")

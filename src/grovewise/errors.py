@@ -23,3 +23,7 @@ class DataError(GrovewiseError):
 
 class SettingError(GrovewiseError, ValueError):
     """A setting (option, parameter) has a value outside what it accepts."""
+
+
+class CancelledError(GrovewiseError):
+    """The user cancelled a step; earlier results are kept."""

@@ -13,19 +13,22 @@ import json
 import os
 import tempfile
 import threading
-from collections.abc import Callable
+import time
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
 
-from .errors import GrovewiseError, SettingError
+from .errors import CancelledError, GrovewiseError, SettingError  # noqa: F401 (re-exported)
 from .forest import Forest
 from .hashing import sha256_of
 from .loaders import Dataset, from_estimator, load_data, load_native
 from .loaders.exactness import ExactnessCheck, check_exactness
 from .storage import StorageError, decode, encode, load_arrays, read_document, save_arrays
+from .progress import Progress, StepMeter, check_cancel
+from .sampling import stratified_rows
 from .summary import ModelSummary, summarize
+from .traversal import use_threads
 from .surrogate.mimic import READABLE_DEFAULTS
 
 STEPS = ("intake", "anatomy", "proximity", "surrogate", "cases")
@@ -36,15 +39,9 @@ DECISION_LABELS = {"pending": "not yet decided", "approve": "approve",
                    "approve_with_conditions": "approve with conditions", "reject": "reject"}
 REVIEW_FILE = "review.json"
 FORMAT = "grovewise-review/1"
-PROXIMITY_MAX_ROWS = 3000  # proximity is quadratic in rows: larger data is sampled (seeded)
 PAIRS_KEPT = 2000  # closest pairs kept with the results for the Proximity page and report
 
-# (step, fraction 0..1, message[, solver progress object while solving])
-Progress = Callable[..., None]
-
-
-class CancelledError(GrovewiseError):
-    """The user cancelled a step; earlier results are kept."""
+PREDICT_BLOCK_ROWS = 20_000  # rows predicted at a time: progress, cancel, flat memory
 
 
 @dataclass
@@ -82,6 +79,16 @@ class ReviewSettings:
     seed: int = 0
     flags: dict[str, str] = field(default_factory=dict)
     permutation_repeats: int = 5
+    # Rows for the steps whose cost grows fastest with the data; 0 means every row. A larger
+    # data set is sampled (seeded, stratified by the predicted class) and the report says so.
+    permutation_rows: int = 5_000
+    exactness_rows: int = 50_000
+    proximity_rows: int = 3_000
+    # Weak spots (grovewise.weak_spots): when a leaf, the fit or the data deserve a warning.
+    leaf_min_holdout_rows: int = 30
+    leaf_fidelity_floor: float = 0.8
+    overfit_gap: float = 0.05
+    near_perfect_target: float = 0.99
 
     def validate(self) -> "ReviewSettings":
         """Raise a SettingError naming the first setting out of range."""
@@ -101,12 +108,29 @@ class ReviewSettings:
             ("seed", isinstance(self.seed, (int, np.integer)) and self.seed >= 0,
              "a whole number of 0 or more"),
             ("permutation_repeats", int(self.permutation_repeats) >= 1, "at least 1"),
+            ("permutation_rows", _whole(self.permutation_rows) and (
+                self.permutation_rows == 0 or self.permutation_rows >= 10),
+             "0 (every row) or a whole number of at least 10"),
+            ("exactness_rows", _whole(self.exactness_rows) and (
+                self.exactness_rows == 0 or self.exactness_rows >= 10),
+             "0 (every row) or a whole number of at least 10"),
+            ("proximity_rows", _whole(self.proximity_rows) and 2 <= self.proximity_rows
+             <= 20_000, "a whole number from 2 to 20,000"),
+            ("leaf_min_holdout_rows", _whole(self.leaf_min_holdout_rows), "0 or more"),
+            ("leaf_fidelity_floor", 0 <= float(self.leaf_fidelity_floor) <= 1, "from 0 to 1"),
+            ("overfit_gap", 0 <= float(self.overfit_gap) <= 1, "from 0 to 1"),
+            ("near_perfect_target", 0 < float(self.near_perfect_target) <= 1,
+             "above 0 and at most 1"),
         ]
         for name, ok, what in checks:
             if not ok:
                 raise SettingError(f"setting {name}={getattr(self, name)!r} is out of range; "
                                    f"give {what}.")
         return self
+
+
+def _whole(v) -> bool:
+    return isinstance(v, (int, np.integer)) and not isinstance(v, bool) and v >= 0
 
 
 @dataclass
@@ -168,6 +192,7 @@ class ProximityResult:
     counts: object  # PairCounts
     pairs: object  # ProximityPairs at the threshold, closest first, at most PAIRS_KEPT
     n_pairs_at_threshold: int
+    sample: dict | None = None  # how ``rows`` were drawn (grovewise.sampling.RowSample)
 
 
 @dataclass
@@ -188,6 +213,18 @@ class CasesResult:
         return float(np.mean(self.surrogate == self.ensemble)) if self.ensemble.size else 1.0
 
 
+def proba_in_blocks(forest: Forest, X: np.ndarray, meter: StepMeter | None = None
+                    ) -> np.ndarray:
+    """``forest.predict_proba(X)`` a block of rows at a time, counted on ``meter``."""
+    out = np.empty((X.shape[0], forest.n_classes))
+    for s in range(0, X.shape[0], PREDICT_BLOCK_ROWS):
+        block = X[s:s + PREDICT_BLOCK_ROWS]
+        out[s:s + block.shape[0]] = forest.predict_proba(block)
+        if meter is not None:
+            meter.advance(block.shape[0])
+    return out
+
+
 class Review:
     """One review: inputs, settings, results of every step, and the reviewer's sign-off."""
 
@@ -203,6 +240,7 @@ class Review:
         self.timings: dict[str, float] = {}
         self.program_mps: bytes | None = None  # gzip of the surrogate's program, as MPS
         self.created_at = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+        self.jobs: int | None = None  # cores for the steps (None: all); never changes a result
         self._lock = threading.Lock()
 
     # ------------------------------------------------------------------ access
@@ -234,6 +272,11 @@ class Review:
     def run(self, steps=STEPS, progress: Progress | None = None,
             cancel: threading.Event | None = None) -> "Review":
         """Run ``steps`` in order. A failing or cancelled step leaves earlier results intact."""
+        if "surrogate" in steps and not self.done("surrogate"):
+            # compile the surrogate's sweep while the first steps run, not on its clock
+            from .surrogate.sweep_kernel import warm_up
+
+            threading.Thread(target=warm_up, name="compile-sweep", daemon=True).start()
         for step in steps:
             if step not in STEPS:
                 raise SettingError(f"step {step!r} is not known; steps: {', '.join(STEPS)}")
@@ -254,7 +297,8 @@ class Review:
         report(step, 0.0, f"{step}: starting")
         start = perf_counter()
         runner = getattr(self, f"_run_{step}")
-        result = runner(report, cancel) if step == "surrogate" else runner(report)
+        use_threads(self.jobs)
+        result = runner(report, cancel)
         with self._lock:
             self.results[step] = result
             self.timings[step] = perf_counter() - start
@@ -264,53 +308,70 @@ class Review:
         report(step, 1.0, f"{step}: done in {self.timings[step]:.1f} s")
         return result
 
-    def _run_intake(self, report: Progress) -> IntakeResult:
+    def _run_intake(self, report: Progress, cancel: threading.Event | None) -> IntakeResult:
         inp, st = self.inputs, self.settings
+        report("intake", 0.02, f"reading the model {inp.model.name}")
         native = load_native(inp.model, trusted=inp.trusted)
         forest = from_estimator(native)
-        report("intake", 0.3, "model read; reading the review data")
+        check_cancel(cancel, "intake")
+        report("intake", 0.15, f"model read; reading the review data {inp.data.name}")
         data = load_data(inp.data, forest=forest, target=inp.target)
         holdout = None
         if inp.holdout is not None:
             holdout = load_data(inp.holdout, forest=forest, target=inp.target)
-        report("intake", 0.6, "checking the predictions against the library's own")
-        exactness = check_exactness(forest, native, data.X)
+        meter = StepMeter(report, "intake", data.X.shape[0], "rows predicted", cancel=cancel,
+                          start=0.3, span=0.35)
+        proba = proba_in_blocks(forest, data.X, meter)
+        predicted = np.argmax(proba, axis=1)
+        sample = stratified_rows(predicted, data.X.shape[0], st.exactness_rows, st.seed)
+        meter = StepMeter(report, "intake", sample.size, "rows checked against the library's "
+                          "own predictions", cancel=cancel, start=0.65, span=0.3)
+        exactness = check_exactness(forest, native, data.X[sample.rows],
+                                    progress=lambda done, _total: meter.advance(
+                                        done - meter.done), sample=sample.to_dict())
         if not exactness.passed:
             raise GrovewiseError(f"{inp.model}: Grovewise does not reproduce this model's "
                                  f"predictions on {inp.data}: {exactness.text()}. The review "
                                  "stops here; report the model type and library versions.")
-        train, held = self._split(forest, data.X, holdout is None)
+        train, held = self._split(predicted, holdout is None)
         from .analysis.flags import check_flags
 
         st.flags = check_flags(forest.feature_names, st.flags)
         self.forest, self.data, self.holdout_data = forest, data, holdout
+        self._proba = proba
         return IntakeResult(
             model_sha256=sha256_of(inp.model), data_sha256=data.sha256,
             holdout_sha256=None if holdout is None else holdout.sha256,
-            summary=summarize(forest, data.X), exactness=exactness,
+            summary=summarize(forest, data.X, predicted=predicted), exactness=exactness,
             data_summary=data.to_dict(), notes=list(data.notes),
             train_rows=train, holdout_rows=held,
             holdout_source="file" if holdout is not None else
             ("split" if held.size else "none"))
 
-    def _split(self, forest: Forest, X: np.ndarray, split: bool) -> tuple[np.ndarray, np.ndarray]:
+    def _split(self, predicted: np.ndarray, split: bool) -> tuple[np.ndarray, np.ndarray]:
         """Train and holdout rows, stratified by the ensemble's predicted class (seeded)."""
-        n = X.shape[0]
+        n = predicted.shape[0]
         share = self.settings.holdout_share
         if not split or share == 0 or n < 10:
             return np.arange(n), np.zeros(0, dtype=np.int64)
         rng = np.random.default_rng(self.settings.seed)
-        yhat = forest.predict_index(X)
         held = []
-        for k in np.unique(yhat):
-            rows = np.flatnonzero(yhat == k)
+        for k in np.unique(predicted):
+            rows = np.flatnonzero(predicted == k)
             take = int(round(share * rows.size))
             held.append(rng.permutation(rows)[:take])
         held_rows = np.sort(np.concatenate(held)).astype(np.int64)
         train = np.setdiff1d(np.arange(n), held_rows).astype(np.int64)
         return train, held_rows
 
-    def _run_anatomy(self, report: Progress) -> AnatomyResult:
+    def predicted_proba(self) -> np.ndarray:
+        """The ensemble's probabilities on the review data (kept from the intake step)."""
+        proba = getattr(self, "_proba", None)
+        if proba is None or proba.shape[0] != self.data.X.shape[0]:
+            proba = self._proba = proba_in_blocks(self.forest, self.data.X)
+        return proba
+
+    def _run_anatomy(self, report: Progress, cancel: threading.Event | None) -> AnatomyResult:
         from .analysis.flags import flag_report
         from .analysis.importance import (importance_comparison, impurity_importance,
                                           permutation_importance_result)
@@ -318,30 +379,40 @@ class Review:
         from .analysis.usage import depth_usage, position_usage
 
         forest, X, st = self.forest, self.data.X, self.settings
+        report("anatomy", 0.02, "usage by depth and position, threshold profiles")
         usage = {w: depth_usage(forest, weight=w) for w in ("count", "gain", "cover")}
         per_class = depth_usage(forest, per_class=True) if forest.n_outputs > 1 and \
             forest.link == "softmax" else None
-        report("anatomy", 0.2, "permutation importance on the review data")
-        perm = permutation_importance_result(forest, X, y=None, n_repeats=st.permutation_repeats,
-                                             random_state=st.seed)
+        thresholds = threshold_profiles(forest, X)
+        sample = stratified_rows(np.argmax(self.predicted_proba(), axis=1), X.shape[0],
+                                 st.permutation_rows, st.seed)
+        passes = 1 + forest.n_features * st.permutation_repeats
+        report("anatomy", 0.1, f"permutation importance on {sample.describe()}")
+        meter = StepMeter(report, "anatomy", passes, "permutation passes", cancel=cancel,
+                          start=0.1, span=0.88)
+        perm = permutation_importance_result(forest, X[sample.rows], y=None,
+                                             n_repeats=st.permutation_repeats,
+                                             random_state=st.seed, meter=meter)
+        perm.sample = sample.to_dict()
         impurity = impurity_importance(forest)
         comparison = importance_comparison(impurity, perm)
         return AnatomyResult(
             depth_usage=usage, position_usage=position_usage(forest, max_depth=3),
-            thresholds=threshold_profiles(forest, X), importance=comparison,
+            thresholds=thresholds, importance=comparison,
             flags=flag_report(forest, st.flags, comparison), per_class=per_class)
 
-    def _run_proximity(self, report: Progress) -> ProximityResult:
+    def _run_proximity(self, report: Progress, cancel: threading.Event | None
+                       ) -> ProximityResult:
         from .analysis.proximity import definition, pairs_above_thresholds, proximity_pairs
 
         X, st = self.data.X, self.settings
-        n = X.shape[0]
-        rows = np.arange(n)
-        if n > PROXIMITY_MAX_ROWS:
-            rng = np.random.default_rng(st.seed)
-            rows = np.sort(rng.choice(n, PROXIMITY_MAX_ROWS, replace=False))
+        sample = stratified_rows(np.argmax(self.predicted_proba(), axis=1), X.shape[0],
+                                 st.proximity_rows, st.seed)
+        rows = sample.rows
         Xp = X[rows]
+        report("proximity", 0.05, f"pairs sharing leaves on {sample.describe()}")
         counts = pairs_above_thresholds(self.forest, Xp)
+        check_cancel(cancel, "proximity")
         report("proximity", 0.5, "pairs at the threshold")
         pairs = proximity_pairs(self.forest, Xp, st.proximity_threshold)
         n_pairs = len(pairs)
@@ -350,7 +421,8 @@ class Review:
             pairs = replace(pairs, i=pairs.i[keep], j=pairs.j[keep], p=pairs.p[keep])
         return ProximityResult(threshold=float(st.proximity_threshold),
                                definition=definition(self.forest), rows=rows, counts=counts,
-                               pairs=pairs, n_pairs_at_threshold=n_pairs)
+                               pairs=pairs, n_pairs_at_threshold=n_pairs,
+                               sample=sample.to_dict())
 
     def _surrogate_rows(self) -> tuple[np.ndarray, np.ndarray]:
         """Every row the surrogate sees (review data, then any holdout file), and which of
@@ -381,17 +453,26 @@ class Review:
         from .surrogate.solver import Cancel
 
         st = self.settings
+        started = time.perf_counter()  # the time limit covers the whole step
         X, held = self._surrogate_rows()
         forbidden = [f for f, kind in st.flags.items() if kind == "forbidden"]
         stop = Cancel(cancel) if cancel is not None else None
+        proba = self.predicted_proba()
+        if self.holdout_data is not None:
+            proba = np.vstack([proba, proba_in_blocks(self.forest, self.holdout_data.X)])
 
         def on_progress(info) -> None:
+            elapsed = time.perf_counter() - started
             gap = "" if info.gap is None else f", gap {info.gap:.3f}"
-            best = "" if info.incumbent is None else f"incumbent {info.incumbent:.5f}"
+            best = "" if info.incumbent is None else f", incumbent {info.incumbent:.5f}"
             bound = "" if info.bound is None else f", bound {info.bound:.5f}"
-            frac = min(0.99, info.elapsed / max(st.time_limit, 1e-9))
-            report("surrogate", frac, f"{info.stage}: {info.elapsed:.1f} s, {best}{bound}{gap}",
-                   info)
+            note = f" ({info.note})" if getattr(info, "note", "") else ""
+            frac = min(0.99, elapsed / max(st.time_limit, 1e-9))
+            report("surrogate", frac, f"{info.stage}: {elapsed:.1f} s of {st.time_limit:g} s"
+                   f"{best}{bound}{gap}{note}", info)
+
+        report("surrogate", 0.0, f"preparing: proximity pairs among at most "
+               f"{st.proximity_rows:,} training rows, feature usage by depth")
 
         with tempfile.TemporaryDirectory() as scratch:
             program = Path(scratch) / "program.mps"
@@ -401,8 +482,10 @@ class Review:
                            max_features_per_split=st.max_features_per_split, alpha=st.alpha,
                            time_limit=st.time_limit, node_limit=st.node_limit,
                            random_state=st.seed, forbidden_features=forbidden or None,
-                           progress=on_progress, cancel=stop, mps_path=program)
-            self.program_mps = gzip.compress(program.read_bytes(), mtime=0) \
+                           progress=on_progress, cancel=stop, mps_path=program, proba=proba,
+                           proximity_rows=st.proximity_rows, started=started,
+                           threads=1)  # HiGHS's answer changes with its threads; ours must not
+            self.program_mps = gzip.compress(program.read_bytes(), compresslevel=1, mtime=0) \
                 if program.is_file() else None
         return result
 
@@ -415,11 +498,15 @@ class Review:
                                "program stage (run it with a longer time limit).")
         return write_atomic(Path(path), gzip.decompress(self.program_mps))
 
-    def _run_cases(self, report: Progress) -> CasesResult:
+    def _run_cases(self, report: Progress, cancel: threading.Event | None) -> CasesResult:
         allX, held = self._surrogate_rows()
         split = np.zeros(allX.shape[0], dtype=np.int64)
         split[held] = 2 if self.holdout_data is not None else 1
-        proba = self.forest.predict_proba(allX)
+        proba = self.predicted_proba()
+        if self.holdout_data is not None:
+            meter = StepMeter(report, "cases", self.holdout_data.X.shape[0],
+                              "holdout rows predicted", cancel=cancel, span=0.5)
+            proba = np.vstack([proba, proba_in_blocks(self.forest, self.holdout_data.X, meter)])
         ensemble = np.argmax(proba, axis=1)
         filled = self.filled(allX)
         sur = self.surrogate
@@ -500,6 +587,7 @@ class Review:
         mps = state.get("program_mps")
         review.program_mps = None if mps is None else mps.tobytes()
         review.created_at = state["created_at"]
+        review.jobs = None
         review._lock = threading.Lock()
         return review
 

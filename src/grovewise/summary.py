@@ -59,8 +59,10 @@ class ModelSummary:
         return "\n".join(lines)
 
 
-def summarize(forest: Forest, X: np.ndarray | None = None) -> ModelSummary:
-    """Summarise ``forest``; with review data ``X``, add the predicted class counts."""
+def summarize(forest: Forest, X: np.ndarray | None = None, *,
+              predicted: np.ndarray | None = None) -> ModelSummary:
+    """Summarise ``forest``; with review data ``X``, add the predicted class counts
+    (``predicted``: the class indices, when already known)."""
     depths = np.array([t.max_depth for t in forest.trees])
     leaves = np.array([t.n_leaves for t in forest.trees])
     used = forest.used_features
@@ -78,7 +80,7 @@ def summarize(forest: Forest, X: np.ndarray | None = None) -> ModelSummary:
         has_feature_names=forest.has_feature_names,
     )
     if X is not None:
-        pred = forest.predict_index(X)
+        pred = forest.predict_index(X) if predicted is None else predicted
         counts = np.bincount(pred, minlength=forest.n_classes)
         summary.rows = int(X.shape[0])
         summary.predicted_counts = {str(c): int(n) for c, n in zip(forest.classes_, counts)}

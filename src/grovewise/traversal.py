@@ -36,3 +36,12 @@ def leaf_nodes(X, feature, threshold, left, right, nan_left, roots, strict):  # 
                 k = left[k] if go_left else right[k]
             out[t, i] = k
     return out.T
+
+
+def use_threads(jobs: int | None) -> int:
+    """Let the compiled walks of this thread use ``jobs`` cores (None or 0: all). The walk's
+    results do not depend on it. Returns the number used."""
+    cores = numba.config.NUMBA_NUM_THREADS
+    n = cores if not jobs else max(1, min(int(jobs), cores))
+    numba.set_num_threads(n)
+    return n

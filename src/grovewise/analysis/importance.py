@@ -19,6 +19,7 @@ from sklearn.base import BaseEstimator, ClassifierMixin
 
 from ..errors import DataError, SettingError
 from ..forest import Forest
+from ..progress import StepMeter
 
 SKLEARN_MDI_KINDS = ("decision_tree", "random_forest", "extra_trees")
 METHOD_MDI = "mean decrease in impurity (scikit-learn's feature_importances_)"
@@ -83,6 +84,12 @@ class PermutationImportance:
         ``"labels"`` (scored against the given y) or ``"model predictions"`` (y was not
         given: the score is the agreement with the forest's own predictions, i.e. fidelity).
     n_repeats, random_state, n_rows : int
+    se : ndarray of shape (n_features,) or None
+        Standard error of ``mean`` that the number of rows implies: the standard deviation
+        over rows of each row's drop (averaged over the repeats) divided by sqrt(n_rows).
+        Computed for accuracy only.
+    sample : dict or None
+        How the rows were chosen, when they are a sample of the review data.
     """
 
     feature_names: list[str]
@@ -95,6 +102,8 @@ class PermutationImportance:
     n_repeats: int
     random_state: int
     n_rows: int
+    se: np.ndarray | None = None
+    sample: dict | None = None  # the RowSample the rows came from (see grovewise.sampling)
 
     @property
     def ranks(self) -> np.ndarray:
@@ -106,6 +115,7 @@ class PermutationImportance:
                 "n_rows": self.n_rows, "baseline_score": self.baseline_score,
                 "feature_names": list(self.feature_names), "mean": self.mean.tolist(),
                 "std": self.std.tolist(), "values": self.values.tolist(),
+                "se": None if self.se is None else self.se.tolist(), "sample": self.sample,
                 "ranks": self.ranks.tolist()}
 
     def to_rows(self) -> list[dict]:
@@ -127,6 +137,7 @@ class ImportanceComparison:
     impurity_method: str
     permutation_mean: np.ndarray | None = None
     permutation_std: np.ndarray | None = None
+    permutation_se: np.ndarray | None = None
     permutation_rank: np.ndarray | None = None
     permutation_setting: dict | None = None
     caution: str = STROBL_CAUTION
@@ -144,6 +155,7 @@ class ImportanceComparison:
                 "impurity_method": self.impurity_method,
                 "permutation_mean": lst(self.permutation_mean),
                 "permutation_std": lst(self.permutation_std),
+                "permutation_se": lst(self.permutation_se),
                 "permutation_rank": lst(self.permutation_rank),
                 "permutation_setting": self.permutation_setting, "caution": self.caution}
 
@@ -281,13 +293,33 @@ def _scorer(estimator, scoring):
                            ) from None
 
 
+def _sklearn_shuffles(random_state: int, n_rows: int, n_repeats: int) -> np.ndarray:
+    """The row orders scikit-learn's ``permutation_importance`` applies, repeat by repeat.
+
+    It draws one seed from ``random_state`` and, for every column alike, shuffles an index
+    array ``n_repeats`` times with a fresh ``RandomState(seed)``, each shuffle applied on top
+    of the previous one. Reproducing that gives scikit-learn's numbers exactly (tested).
+    """
+    seed = np.random.RandomState(random_state).randint(np.iinfo(np.int32).max + 1)
+    rs = np.random.RandomState(seed)
+    idx = np.arange(n_rows)
+    out = np.empty((n_repeats, n_rows), dtype=np.int64)
+    for r in range(n_repeats):
+        rs.shuffle(idx)
+        out[r] = idx
+    return out
+
+
 def permutation_importance_result(forest: Forest, X, y=None, n_repeats: int = 5,
                                   random_state: int = 0, scoring="accuracy",
-                                  progress: Callable | None = None) -> PermutationImportance:
+                                  progress: Callable | None = None,
+                                  meter: StepMeter | None = None) -> PermutationImportance:
     """Permutation importance of each feature on the review data.
 
-    Runs :func:`sklearn.inspection.permutation_importance` on the Forest: each column is
-    shuffled ``n_repeats`` times (seeded by ``random_state``) and the drop in score recorded.
+    Each column is shuffled ``n_repeats`` times (seeded by ``random_state``, in the same way
+    as :func:`sklearn.inspection.permutation_importance`, whose numbers it equals) and the
+    drop in score recorded. For accuracy the agreement of every row is kept, so the result
+    also carries the standard error that the number of rows implies (``se``).
 
     Parameters
     ----------
@@ -299,17 +331,18 @@ def permutation_importance_result(forest: Forest, X, y=None, n_repeats: int = 5,
     n_repeats : int
     random_state : int
     scoring : str or callable
-        A scikit-learn scoring name or scorer (default accuracy).
+        ``"accuracy"`` (computed here, with standard errors), or any other scikit-learn
+        scoring name or scorer (through scikit-learn's function, without them).
     progress : callable, optional
         ``progress(done, total)`` after each of the ``1 + n_features * n_repeats`` scoring
         passes; raise from it to stop.
+    meter : StepMeter, optional
+        Counts the passes for a review step (progress, time left, cancel).
 
     Returns
     -------
     PermutationImportance
     """
-    from sklearn.inspection import permutation_importance
-
     if isinstance(n_repeats, bool) or not isinstance(n_repeats, (int, np.integer)) or n_repeats < 1:
         raise SettingError(f"n_repeats={n_repeats!r} must be a whole number of at least 1")
     if isinstance(random_state, bool) or not isinstance(random_state, (int, np.integer)):
@@ -322,18 +355,61 @@ def permutation_importance_result(forest: Forest, X, y=None, n_repeats: int = 5,
         if y.shape[0] != X.shape[0]:
             raise DataError(f"the target has {y.shape[0]} values but the data has {X.shape[0]} "
                             "rows; give one label per row")
-    total = 2 + forest.n_features * int(n_repeats)
-    est = ForestClassifier(forest, progress=progress, total_calls=total)
+    n_repeats, random_state = int(n_repeats), int(random_state)
+    total = 1 + forest.n_features * n_repeats
+    if scoring != "accuracy":
+        return _permutation_by_sklearn(forest, X, y, n_repeats, random_state, scoring,
+                                       progress, total, target)
+    calls = 0
+
+    def tick() -> None:
+        nonlocal calls
+        calls += 1
+        if progress is not None:
+            progress(calls, total)
+        if meter is not None:
+            meter.advance()
+
+    hit0 = forest.predict(X) == y
+    tick()
+    n, p = X.shape
+    shuffles = _sklearn_shuffles(random_state, n, n_repeats)
+    drops = np.zeros((p, n_repeats))
+    row_drop = np.zeros((p, n))
+    column = X.copy()
+    for j in range(p):
+        original = X[:, j].copy()
+        for r in range(n_repeats):
+            column[:, j] = column[shuffles[r], j]
+            hit = forest.predict(column) == y
+            drops[j, r] = hit0.mean() - hit.mean()
+            row_drop[j] += hit0.astype(np.float64) - hit
+            tick()
+        column[:, j] = original
+    row_drop /= n_repeats
+    se = row_drop.std(axis=1, ddof=1) / np.sqrt(n) if n > 1 else np.zeros(p)
+    return PermutationImportance(
+        feature_names=list(forest.feature_names), mean=drops.mean(axis=1),
+        std=drops.std(axis=1), values=drops, baseline_score=float(hit0.mean()),
+        scoring="accuracy", target=target, n_repeats=n_repeats, random_state=random_state,
+        n_rows=int(n), se=se)
+
+
+def _permutation_by_sklearn(forest, X, y, n_repeats, random_state, scoring, progress, total,
+                            target) -> PermutationImportance:
+    """Any other score, through scikit-learn's own function (no standard errors)."""
+    from sklearn.inspection import permutation_importance
+
+    est = ForestClassifier(forest, progress=progress, total_calls=total + 1)
     scorer = _scorer(est, scoring)
     baseline = float(scorer(est, X, y))
-    res = permutation_importance(est, X, y, scoring=scorer, n_repeats=int(n_repeats),
-                                 random_state=int(random_state))
+    res = permutation_importance(est, X, y, scoring=scorer, n_repeats=n_repeats,
+                                 random_state=random_state)
     return PermutationImportance(
         feature_names=list(forest.feature_names), mean=res.importances_mean,
         std=res.importances_std, values=res.importances, baseline_score=baseline,
         scoring=scoring if isinstance(scoring, str) else getattr(scoring, "__name__", "custom"),
-        target=target, n_repeats=int(n_repeats), random_state=int(random_state),
-        n_rows=int(X.shape[0]))
+        target=target, n_repeats=n_repeats, random_state=random_state, n_rows=int(X.shape[0]))
 
 
 def importance_comparison(impurity: ImpurityImportance,
@@ -349,10 +425,74 @@ def importance_comparison(impurity: ImpurityImportance,
     if permutation is not None:
         cmp.permutation_mean = permutation.mean
         cmp.permutation_std = permutation.std
+        cmp.permutation_se = permutation.se
         cmp.permutation_rank = permutation.ranks
         cmp.permutation_setting = {"scoring": permutation.scoring, "target": permutation.target,
                                    "n_repeats": permutation.n_repeats,
                                    "random_state": permutation.random_state,
                                    "n_rows": permutation.n_rows,
+                                   "sample": permutation.sample,
                                    "baseline_score": permutation.baseline_score}
     return cmp
+
+
+@dataclass
+class Reliance:
+    """What the model relies on most, by the agreement of the importance measures it has.
+
+    ``order`` ranks the features by their mean rank over ``measures`` (ties by impurity
+    rank); ``disagreements`` names features whose ranks disagree strongly: high by impurity
+    (top ``k``) while permutation finds no importance (at most one standard error above 0,
+    or in the lower half of its ranking), and the reverse.
+    """
+
+    feature_names: list[str]
+    measures: list[str]
+    mean_rank: np.ndarray
+    order: np.ndarray
+    disagreements: list[str]
+
+    def top(self, k: int = 3) -> list[str]:
+        return [self.feature_names[j] for j in self.order[:k]]
+
+    def headline(self, k: int = 3) -> str:
+        by = " and ".join(self.measures)
+        text = f"{', '.join(self.top(k))} (by the mean rank of {by})"
+        return text
+
+    def to_dict(self) -> dict:
+        return {"kind": "reliance", "measures": self.measures,
+                "feature_names": list(self.feature_names), "mean_rank": self.mean_rank.tolist(),
+                "order": self.order.tolist(), "disagreements": list(self.disagreements)}
+
+
+def reliance(cmp: ImportanceComparison, k: int = 3, extra: dict | None = None) -> Reliance:
+    """Rank features by the agreement of impurity, permutation (and any ``extra`` measure:
+    name -> ranks) importance, and flag the features on which the measures disagree."""
+    names = list(cmp.feature_names)
+    p = len(names)
+    ranks = {"impurity importance": np.asarray(cmp.impurity_rank, dtype=np.float64)}
+    if cmp.has_permutation:
+        ranks["permutation importance"] = np.asarray(cmp.permutation_rank, dtype=np.float64)
+    for name, r in (extra or {}).items():
+        ranks[name] = np.asarray(r, dtype=np.float64)
+    mean_rank = np.mean(list(ranks.values()), axis=0)
+    order = np.lexsort((cmp.impurity_rank, mean_rank))
+    notes = []
+    if cmp.has_permutation:
+        se = cmp.permutation_se if cmp.permutation_se is not None else np.zeros(p)
+        none = (cmp.permutation_mean <= se) | (cmp.permutation_rank > p / 2)
+        for j in np.argsort(cmp.impurity_rank, kind="stable")[:k]:
+            if none[j]:
+                notes.append(
+                    f"{names[j]} is ranked {int(cmp.impurity_rank[j])} by impurity importance "
+                    f"but permutation importance finds little or none "
+                    f"({cmp.permutation_mean[j]:.4f}, rank {int(cmp.permutation_rank[j])}); "
+                    "impurity importance favours features with many cut points and shares "
+                    "credit among correlated features (Strobl et al. 2007)")
+        for j in np.argsort(cmp.permutation_rank, kind="stable")[:k]:
+            if cmp.impurity_rank[j] > p / 2 and cmp.permutation_mean[j] > se[j]:
+                notes.append(
+                    f"{names[j]} is ranked {int(cmp.permutation_rank[j])} by permutation "
+                    f"importance but only {int(cmp.impurity_rank[j])} by impurity importance")
+    return Reliance(names, list(ranks), mean_rank, order, notes)

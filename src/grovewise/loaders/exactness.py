@@ -22,6 +22,7 @@ class ExactnessCheck:
     tolerance: float
     predictions_equal: bool
     leaves_equal: bool | None  # None where the library has no leaf-index method
+    sample: dict | None = None  # how the rows were chosen from larger data (grovewise.sampling)
 
     @property
     def passed(self) -> bool:
@@ -32,7 +33,9 @@ class ExactnessCheck:
         verdict = "exact" if self.passed else "NOT exact"
         leaves = {True: "leaf ids equal", False: "leaf ids differ",
                   None: "no leaf ids to compare"}[self.leaves_equal]
-        return (f"{verdict}: on {self.rows} rows, largest probability difference from "
+        where = (self.sample or {}).get("description") if (self.sample or {}).get("sampled") \
+            else f"{self.rows} rows"
+        return (f"{verdict}: on {where}, largest probability difference from "
                 f"{self.library}'s own predict_proba is {self.max_abs_proba_diff:.1e} "
                 f"(tolerance {self.tolerance:.0e}); predicted classes "
                 f"{'equal' if self.predictions_equal else 'differ'}; {leaves}")
@@ -63,15 +66,32 @@ def _library_outputs(native, X: np.ndarray, feature_names: list[str] | None):
     return proba, np.argmax(proba, axis=1), leaves
 
 
-def check_exactness(forest: Forest, native, X: np.ndarray) -> ExactnessCheck:
-    """Compare ``forest`` with the library's own object ``native`` on ``X``."""
+CHUNK_ROWS = 20_000  # rows compared at a time: progress, and memory flat in the data's size
+
+
+def check_exactness(forest: Forest, native, X: np.ndarray, *, progress=None,
+                    sample: dict | None = None) -> ExactnessCheck:
+    """Compare ``forest`` with the library's own object ``native`` on ``X``.
+
+    The rows are compared in blocks of :data:`CHUNK_ROWS`; ``progress(done_rows, total)``
+    follows each block (raise from it to stop). ``sample`` records how ``X`` was drawn from
+    larger data, for the text.
+    """
     library = "xgboost" if forest.kind == "xgboost" else "scikit-learn"
     names = forest.feature_names if forest.has_feature_names else None
-    proba, index, leaves = _library_outputs(native, X, names)
-    ours = forest.predict_proba(X)
-    diff = float(np.max(np.abs(ours - proba))) if X.shape[0] else 0.0
-    leaves_equal = None if leaves is None else bool(np.array_equal(forest.apply(X), leaves))
-    return ExactnessCheck(library=library, rows=int(X.shape[0]), max_abs_proba_diff=diff,
-                          tolerance=TOLERANCE[library],
-                          predictions_equal=bool(np.array_equal(np.argmax(ours, axis=1), index)),
-                          leaves_equal=leaves_equal)
+    n = X.shape[0]
+    diff, classes_equal, leaves_equal = 0.0, True, None
+    for s in range(0, n, CHUNK_ROWS):
+        block = X[s:s + CHUNK_ROWS]
+        proba, index, leaves = _library_outputs(native, block, names)
+        ours = forest.predict_proba(block)
+        diff = max(diff, float(np.max(np.abs(ours - proba))))
+        classes_equal &= bool(np.array_equal(np.argmax(ours, axis=1), index))
+        if leaves is not None:
+            same = bool(np.array_equal(forest.apply(block), leaves))
+            leaves_equal = same if leaves_equal is None else (leaves_equal and same)
+        if progress is not None:
+            progress(min(n, s + CHUNK_ROWS), n)
+    return ExactnessCheck(library=library, rows=int(n), max_abs_proba_diff=diff,
+                          tolerance=TOLERANCE[library], predictions_equal=classes_equal,
+                          leaves_equal=leaves_equal, sample=sample)

@@ -23,7 +23,7 @@ from .document import (Code, Document, Figure, Heading, KeyValues, PageBreak, Pa
                        Title)
 from .figures_surrogate import surrogate_tree_figure
 from .html_report import render_html
-from .manifest import build_manifest, deterministic, library_versions
+from .manifest import build_manifest, deterministic, library_versions, saved_review_entry
 from .pdf_report import render_pdf
 
 DECISION_TEXT = {"pending": "not yet decided", "approve": "approved",
@@ -65,6 +65,7 @@ def review_document(review, date: _dt.datetime | None = None) -> Document:
                                   f"{Path(inp.model).name} on {Path(inp.data).name}"))
     _summary(doc, review)
     _intake(doc, review)
+    _samples(doc, review)
     _anatomy(doc, review)
     _proximity(doc, review)
     _surrogate(doc, review)
@@ -75,35 +76,98 @@ def review_document(review, date: _dt.datetime | None = None) -> Document:
     return doc
 
 
+ROW_NUMBERING = ("Rows are numbered from 1 in the order of the data file (the header is not "
+                 "counted), as in the window and in the messages; rows of a separate holdout "
+                 "file follow the review data's.")
+
+
+def _fidelity_text(fid: dict, part: str, review, model: str = "surrogate") -> str:
+    """``"93.4% (95% interval 91.2% to 95.1%)"`` for an unweighted fidelity."""
+    from ..analysis.intervals import wilson_interval
+
+    v = fid[model][part]
+    if v is None:
+        return "n/a"
+    rows = review.surrogate.train_rows if part == "train" else review.surrogate.holdout_rows
+    ci = wilson_interval(int(round(v * rows.size)), int(rows.size))
+    return f"{_pct(v)} (95% interval {_pct(ci[0])} to {_pct(ci[1])})" if ci else _pct(v)
+
+
+def _depth_text(review) -> str:
+    """``depth 2``, or ``depth 1 used of 2 allowed`` when splits that decide nothing were
+    left out."""
+    allowed = review.settings.depth
+    used = getattr(review.surrogate.surrogate, "depth_used_", allowed)
+    return f"depth {used}" if used == allowed else f"depth {used} used of {allowed} allowed"
+
+
+def certificate_line(review) -> str:
+    """The certificate in one sentence: status, objective, bound, gap and what the bound
+    covers."""
+    sur = review.surrogate
+    cert = sur.certificate
+    points = (cert.get("sample") or {}).get("points")
+    n_train = int(sur.train_rows.size)
+    if cert.get("bound") is None:
+        covers = "no bound was proved (the program did not run to one)"
+    else:
+        covers = (f"the bound covers the program's {int(points):,}-point sample of the "
+                  f"{n_train:,} training rows, not the training rows themselves"
+                  if points else f"the bound covers the {n_train:,} training rows")
+    return (f"{cert.get('status')}: objective {_num(cert.get('objective'), 5)}, bound "
+            f"{_num(cert.get('bound'), 5)}, gap {_num(cert.get('gap'), 3)}; {covers}")
+
+
 def _summary(doc: Document, review) -> None:
+    from ..analysis.importance import reliance
+    from ..weak_spots import weak_spots
+
     s, intake, sur = review.intake.summary, review.intake, review.surrogate
     fid = sur.fidelity
-    top = _top_features(review, 3)
+    relies = reliance(review.anatomy.importance)
     rows = [
         ("Model", f"{s.kind.replace('_', ' ')} ({s.library}), {s.n_trees} trees, depth "
                   f"{s.depth_min} to {s.depth_max}, classes {', '.join(map(str, s.classes))}"),
         ("Review data", f"{s.rows} rows, {s.n_features} features; surrogate fit on "
                         f"{intake.train_rows.size} rows, holdout {_holdout_text(review)}"),
         ("Exactness", intake.exactness.text()),
-        ("Relies most on", ", ".join(top)),
-        ("Surrogate", f"depth {review.settings.depth}, fidelity {_pct(fid['surrogate']['train'])} "
-                      f"train / {_pct(fid['surrogate']['holdout'])} holdout"),
-        ("Greedy tree", f"same depth, fidelity {_pct(fid['greedy']['train'])} train / "
-                        f"{_pct(fid['greedy']['holdout'])} holdout"),
-        ("Solver", f"{sur.certificate['status']}, gap {_num(sur.certificate.get('gap'), 3)}, "
-                   f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),
+        ("Relies most on", relies.headline()),
+        ("Surrogate", f"{_depth_text(review)}, fidelity (unweighted) "
+                      f"{_fidelity_text(fid, 'train', review)} train / "
+                      f"{_fidelity_text(fid, 'holdout', review)} holdout"),
+        ("Greedy tree", f"same depth, fidelity (unweighted) {_pct(fid['greedy']['train'])} "
+                        f"train / {_pct(fid['greedy']['holdout'])} holdout"),
+        ("Certificate", certificate_line(review)),
+        ("Solver", f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),
         ("Decision", DECISION_TEXT.get(review.reviewer.decision, review.reviewer.decision)),
     ]
     flags = review.anatomy.flags
     for f in getattr(flags, "features", []):
         rows.append((f"Flagged ({f.flag})", f.statement()))
     doc.add(Heading("Summary"), KeyValues(rows))
+    for note in relies.disagreements:
+        doc.add(Paragraph(f"The importance measures disagree: {note}.", "note"))
+    spots = weak_spots(review)
+    if spots:
+        doc.add(Heading("Weak spots", 2))
+        for spot in spots:
+            doc.add(Paragraph(spot.text, "note"))
     if sur.note:
         doc.add(Paragraph(sur.note, "note"))
     doc.add(Paragraph(CAUTIONS, "caution"))
     doc.add(Figure(surrogate_tree_figure(sur.surrogate, width=7.5), width=0.85,
                    caption="The surrogate's rules (yes to the left); details in the Surrogate "
                            "section"))
+
+
+def _readback_text(readback) -> str:
+    if not readback:
+        return "not run (the program did not run)"
+    verdict = "consistent" if readback.get("consistent") else "NOT consistent"
+    return (f"{verdict}: the tree read from the solution routes the program's "
+            f"{readback.get('points')} points with {readback.get('routing_mismatches')} "
+            f"mismatches; disagreement {_num(readback.get('tree_disagreement'), 6)} (tree) "
+            f"against {_num(readback.get('program_disagreement'), 6)} (program)")
 
 
 def _holdout_text(review) -> str:
@@ -114,12 +178,6 @@ def _holdout_text(review) -> str:
         return (f"{intake.holdout_rows.size} rows split off the review data "
                 f"(stratified by the ensemble's class, seed {review.settings.seed})")
     return "none"
-
-
-def _top_features(review, k: int) -> list[str]:
-    imp = review.anatomy.importance
-    order = np.argsort(imp.impurity_rank, kind="stable")[:k]
-    return [imp.feature_names[j] for j in order]
 
 
 def _intake(doc: Document, review) -> None:
@@ -146,13 +204,53 @@ def _intake(doc: Document, review) -> None:
         doc.add(Paragraph(note, "note"))
 
 
+def sample_rows(review) -> list[list[str]]:
+    """Which figures of the review were computed on a sample of the rows, and how large."""
+    an, prox, sur = review.anatomy, review.proximity, review.surrogate
+    rows = []
+
+    def add(figure: str, sample: dict | None, n_all: int) -> None:
+        text = (sample or {}).get("description") or f"all {n_all:,} rows"
+        rows.append([figure, text])
+
+    n = int(review.data.X.shape[0]) if review.data is not None else review.intake.summary.rows
+    add("Exactness check", review.intake.exactness.sample, review.intake.exactness.rows)
+    if an is not None and an.importance.has_permutation:
+        setting = an.importance.permutation_setting or {}
+        add("Permutation importance (standard error from the rows used)",
+            setting.get("sample"), int(setting.get("n_rows", n)))
+    if prox is not None:
+        add("Proximity pairs and counts", getattr(prox, "sample", None), int(prox.rows.size))
+    if sur is not None:
+        n_train = int(review.intake.train_rows.size)
+        add("Surrogate: must-link pairs", (sur.proximity or {}).get("searched"), n_train)
+        notes = [st.get("note", "") for st in sur.stages
+                 if st.get("name") in ("local_search", "polish")]
+        searched = next((x.split("; ")[0].replace("searched on ", "") for x in notes
+                         if x.startswith("searched on")), f"all {n_train:,} training rows")
+        rows.append(["Surrogate: node-by-node search (every candidate scored on every "
+                     "training row)", searched])
+        points = (sur.certificate.get("sample") or {}).get("points")
+        if points:
+            rows.append(["Surrogate: the program", f"{int(points):,} representative points "
+                         "(weighted) of the training rows"])
+    return rows
+
+
+def _samples(doc: Document, review) -> None:
+    doc.add(Table(["figure", "rows used"], sample_rows(review),
+                  caption="Where the review used a sample of the rows (seeded; the seed is in "
+                          "the settings)"))
+
+
 def _anatomy(doc: Document, review) -> None:
     an, flags = review.anatomy, _flags(review)
     doc.add(PageBreak(), Heading("Anatomy: what the ensemble relies on"))
     doc.add(Paragraph("Each cell is the share of the ensemble's split nodes at that depth that "
                       "test the feature; the bars give the share over all depths."))
     doc.add(Figure(fa.depth_usage_figure(an.depth_usage["count"], flags),
-                   caption="Feature use by depth (count of split nodes)", width=0.95))
+                   caption="Share of the split nodes at each depth that test each feature "
+                           "(nodes counted, not weighted)", width=0.95))
     doc.add(Figure(fa.position_map_figure(an.position_usage, flags),
                    caption="Feature use by node position in the top levels", width=1.0))
     doc.add(Figure(fa.importance_figure(an.importance, flags),
@@ -162,14 +260,16 @@ def _anatomy(doc: Document, review) -> None:
     for j in np.argsort(imp.impurity_rank, kind="stable"):
         row = [imp.feature_names[j], float(imp.impurity[j]), int(imp.impurity_rank[j])]
         if imp.has_permutation:
+            se = imp.permutation_se
             row += [float(imp.permutation_mean[j]), float(imp.permutation_std[j]),
+                    "n/a" if se is None else f"{float(se[j]):.4f}",
                     int(imp.permutation_rank[j])]
         rows.append(row)
     header = ["feature", "impurity", "rank"]
     formats = [None, ".4f", None]
     if imp.has_permutation:
-        header += ["permutation (mean)", "(std)", "rank"]
-        formats += [".4f", ".4f", None]
+        header += ["permutation (mean)", "(std)", "(se)", "rank"]
+        formats += [".4f", ".4f", None, None]
     doc.add(Table(header, rows, caption="Importances and their ranks", formats=formats))
     doc.add(Paragraph(imp.caution, "note"))
     doc.add(Figure(fa.threshold_strips_figure(an.thresholds, flags=flags),
@@ -221,13 +321,16 @@ def _surrogate(doc: Document, review) -> None:
                      wfid["surrogate"][part], wfid["greedy"][part]])
     doc.add(Table(["rows", "surrogate", "greedy", "difference", "surrogate (weighted)",
                    "greedy (weighted)"], rows, caption="Fidelity: share of rows where the "
-                  "tree predicts the ensemble's class",
-                  formats=[None, ".2%", ".2%", "+.2%", ".2%", ".2%"]))
-    doc.add(Table(["leaf", "class", "train rows", "train coverage", "train fidelity",
-                   "holdout rows", "holdout fidelity"],
+                  "tree predicts the ensemble's class (unweighted; weighted: each row counts "
+                  "by the ensemble's probability of its class)",
+                  formats=[None, ".1%", ".1%", "+.1%", ".1%", ".1%"]))
+    doc.add(Table(["leaf", "class", "train rows", "train coverage",
+                   "train fidelity (unweighted)", "holdout rows",
+                   "holdout fidelity (unweighted)"],
                   [[l["leaf"], l["class"], l["train_rows"], l["train_coverage"],
                     l["train_fidelity"], l["holdout_rows"], l["holdout_fidelity"]]
-                   for l in sur.leaves], caption="Leaves",
+                   for l in sur.leaves if l.get("reachable", True)], caption="Leaves (a leaf no "
+                  "row can reach is left out)",
                   formats=[None, None, ",d", ".1%", ".1%", ",d", ".1%"]))
     cert = sur.certificate
     doc.add(Heading("Solver certificate", 2))
@@ -240,7 +343,7 @@ def _surrogate(doc: Document, review) -> None:
                  f"solve {_num(cert.get('solve_time'), 3)} s)"),
         ("Limits", f"time {st.time_limit:g} s, nodes {st.node_limit or 'none'}"),
         ("Program sample", f"{sur.sample_size} points" if sur.sample_size else "not run"),
-        ("Read-back check", json.dumps(cert.get("readback"), default=str)),
+        ("Read-back check", _readback_text(cert.get("readback"))),
         ("Solver", f"{cert.get('solver')} {cert.get('versions', {}).get('highs', '')}".strip()),
     ]))
     doc.add(Table(["stage", "objective", "weighted fidelity", "ready at (s)", "note"],
@@ -253,6 +356,20 @@ def _surrogate(doc: Document, review) -> None:
                       "fidelity measured above, on training and holdout rows.", "note"))
 
 
+def path_features(est, leaf: int) -> list[int]:
+    """The features the splits on the path from the root to ``leaf`` use, root first."""
+    tree = est.tree_
+    nb = tree.coef.shape[0]
+    node, path = nb + int(leaf), []
+    while node > 0:
+        node = (node - 1) // 2
+        path.append(node)
+    used: list[int] = []
+    for t in reversed(path):
+        used += [int(j) for j in np.flatnonzero(tree.coef[t]) if int(j) not in used]
+    return used
+
+
 def _cases(doc: Document, review) -> None:
     cases, names = review.cases, review.forest.feature_names
     classes = list(review.forest.classes_)
@@ -260,20 +377,25 @@ def _cases(doc: Document, review) -> None:
     n = cases.ensemble.size
     doc.add(Paragraph(f"The surrogate agrees with the ensemble on {_pct(cases.agreement)} of "
                       f"{n} rows; it disagrees on {cases.disagreements.size}. The rows below are "
-                      "the disagreements where the ensemble is most confident."))
+                      "the disagreements where the ensemble is most confident, with the values "
+                      "of the features their path through the rules tests. " + ROW_NUMBERING))
     if not cases.disagreements.size:
         return
     conf = cases.proba[cases.disagreements, cases.ensemble[cases.disagreements]]
     pick = cases.disagreements[np.argsort(-conf, kind="stable")[:MAX_CASE_ROWS]]
     X = review.case_rows()
-    top = [review.anatomy.importance.feature_names.index(f) for f in _top_features(review, 3)]
-    rows = [[int(i), ("train", "holdout", "holdout file")[int(cases.split[i])],
-             classes[cases.ensemble[i]], float(cases.proba[i, cases.ensemble[i]]),
-             classes[cases.surrogate[i]], int(cases.surrogate_leaf[i])]
-            + [float(X[i, j]) for j in top] for i in pick]
-    doc.add(Table(["row", "part", "ensemble", "its probability", "surrogate", "leaf"]
-                  + [names[j] for j in top], rows, caption="Disagreements (most confident first)",
-                  formats=[None, None, None, ".3f", None, None] + [".4g"] * len(top)))
+    est = review.surrogate.surrogate
+    rows = []
+    for i in pick:
+        feats = path_features(est, int(cases.surrogate_leaf[i]))
+        values = ", ".join(f"{names[j]} = {X[i, j]:.4g}" for j in feats) or "none (one leaf)"
+        rows.append([int(i) + 1, ("train", "holdout", "holdout file")[int(cases.split[i])],
+                     classes[cases.ensemble[i]], float(cases.proba[i, cases.ensemble[i]]),
+                     classes[cases.surrogate[i]], int(cases.surrogate_leaf[i]), values])
+    doc.add(Table(["row", "part", "ensemble", "its probability", "surrogate", "leaf",
+                   "features on its path"], rows,
+                  caption="Disagreements (most confident first)",
+                  formats=[None, None, None, ".3f", None, None, None]))
 
 
 def _limitations(doc: Document, review) -> None:
@@ -319,23 +441,33 @@ def _signoff(doc: Document, review) -> None:
 
 
 def export_report(review, folder, formats=("html", "pdf"),
-                  date: _dt.datetime | None = None) -> dict[str, Path]:
+                  date: _dt.datetime | None = None, progress=None,
+                  saved_review=None) -> dict[str, Path]:
     """Write the report (HTML and/or PDF) and ``manifest.json`` into ``folder``, atomically.
 
+    ``progress(step, fraction, message)`` hears of each part (step ``"report"``).
+    ``saved_review``: the folder the review was saved to; its files' sha256 go into the
+    manifest, so that ``reproduce`` names any of them changed afterwards.
     Returns the paths written by kind (``html``, ``pdf``, ``manifest``).
     """
+    report = progress or (lambda *_: None)
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
+    report("report", 0.1, "drawing the figures")
     doc = review_document(review, date=date)
     out: dict[str, Path] = {}
     if "html" in formats:
+        report("report", 0.4, "writing report.html")
         out["html"] = write_atomic(folder / "report.html", render_html(doc))
     if "pdf" in formats:
+        report("report", 0.6, "writing report.pdf")
         render_pdf(doc, folder / "report.pdf")
         out["pdf"] = folder / "report.pdf"
     files = {k: {"path": p.name, "sha256": sha256_of(p)} for k, p in out.items()}
     manifest = build_manifest(review, report_files=files)
     manifest["inputs"] = _relative_inputs(manifest["inputs"], folder)
+    if saved_review is not None:
+        manifest["saved_review"] = saved_review_entry(saved_review, folder)
     out["manifest"] = write_atomic(folder / "manifest.json", json.dumps(manifest, indent=1))
     return out
 

@@ -26,7 +26,9 @@ LIBRARIES = ("grovewise", "numpy", "scipy", "scikit-learn", "xgboost", "xgboost-
 UNDIGESTED_KEYS = frozenset({"time", "seconds", "elapsed", "wall_time", "build_time",
                              "solve_time", "time_to_first", "timings", "started_at",
                              "finished_at", "trace", "duration", "first_candidate_time",
-                             "compile_time", "total_time", "source", "file", "path"})
+                             "compile_time", "total_time", "source", "file", "path",
+                             "history", "threads"})
+# history: the progress reports, as many as the clock allowed; threads: the cores a solve used
 
 
 def library_versions() -> dict[str, str]:
@@ -60,6 +62,10 @@ def digest(obj) -> str:
     _collect_array_keys(tree, used)
     for key in sorted(used, key=lambda k: int(k[1:])):
         a = np.ascontiguousarray(arrays[key])
+        if a.dtype.names:  # a record array's padding bytes are whatever memory held
+            from numpy.lib.recfunctions import repack_fields
+
+            a = np.ascontiguousarray(repack_fields(a))
         h.update(f"{a.dtype.str}{a.shape}".encode())
         h.update(a.tobytes())
     return h.hexdigest()
@@ -103,6 +109,8 @@ def build_manifest(review, report_files: dict | None = None) -> dict:
         "seeds": {"review": st.seed, "holdout_split": st.seed, "permutation_importance": st.seed,
                   "proximity_sample": st.seed, "surrogate": st.seed},
         "deterministic": deterministic(review),
+        # how it ran; never part of a result (results are equal for any number of cores)
+        "run": {"jobs": getattr(review, "jobs", None)},
         "versions": library_versions(),
         "certificate": certificate,
         "fidelity": to_plain(getattr(surrogate, "fidelity", None)) if surrogate else None,
@@ -120,3 +128,21 @@ def deterministic(review) -> bool:
         return False
     status = str(getattr(getattr(surrogate, "surrogate", None), "status_", ""))
     return status not in ("time_limit", "cancelled")
+
+
+def saved_review_entry(folder, base) -> dict | None:
+    """``{"path": ..., "files": {name: sha256}}`` of a saved review folder, the path relative
+    to ``base`` (the manifest's folder) when it lies below it; None without such a folder."""
+    from pathlib import Path
+
+    from ..hashing import sha256_of
+
+    folder = Path(folder)
+    if not folder.is_dir():
+        return None
+    names = sorted(p.name for p in folder.iterdir() if p.is_file() and not p.name.startswith("."))
+    try:
+        rel = folder.resolve().relative_to(Path(base).resolve()).as_posix()
+    except ValueError:
+        rel = str(folder.resolve())
+    return {"path": rel, "files": {n: sha256_of(folder / n) for n in names}}

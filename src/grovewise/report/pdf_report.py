@@ -16,6 +16,8 @@ Figures are embedded as 200 dpi images, scaled to their share of the text width.
 
 from __future__ import annotations
 
+import re
+
 import io
 import os
 from collections.abc import Callable
@@ -207,12 +209,22 @@ def _wrap(text: str, font: _Font, width: float) -> list[str]:
 
 
 def _cut_word(word: str, font: _Font, width: float) -> list[str]:
+    """A word too wide for its line, cut after ``_``, ``-``, ``/`` or ``.`` where it can be
+    (``worst_`` ``radius``), by characters only where a part alone is still too wide."""
+    pieces = _pack(_soft_parts(word), font, width)
+    if len(pieces) > 1 and all(_width(p, font) <= width for p in pieces):
+        return pieces
+    return _pack(list(word), font, width)
+
+
+def _pack(parts: list[str], font: _Font, width: float) -> list[str]:
+    """Consecutive ``parts`` joined into pieces no wider than ``width`` where they can be."""
     pieces, current = [], ""
-    for ch in word:
-        if current and _width(current + ch, font) > width:
+    for part in parts:
+        if current and _width(current + part, font) > width:
             pieces.append(current)
             current = ""
-        current += ch
+        current += part
     return pieces + [current]
 
 
@@ -341,7 +353,8 @@ def _column_widths(header: list[str], rows: list[list[str]]) -> list[float]:
     for col in columns:
         fonts = [CELL_HEAD] + [CELL] * (len(col) - 1)
         natural.append(max(_width(t, f) for t, f in zip(col, fonts)) + 2 * CELL_PAD_X)
-        longest = max((_width(w, f) for t, f in zip(col, fonts) for w in t.split()), default=0.0)
+        longest = max((_width(w, f) for t, f in zip(col, fonts) for w in t.split()
+                       for w in _soft_parts(w)), default=0.0)
         minimum.append(min(longest, TEXT_W / len(columns)) + 2 * CELL_PAD_X)
     total, least = sum(natural), sum(minimum)
     if total <= TEXT_W:
@@ -351,6 +364,11 @@ def _column_widths(header: list[str], rows: list[list[str]]) -> list[float]:
         return [w * TEXT_W / least for w in minimum]
     share = (TEXT_W - least) / (total - least)
     return [m + (n - m) * share for n, m in zip(natural, minimum)]
+
+
+def _soft_parts(word: str) -> list[str]:
+    """The pieces a word may be cut into without breaking mid-word (after ``_ - / .``)."""
+    return re.findall(r"[^_\-/.]*[_\-/.]|[^_\-/.]+$", word) or [word]
 
 
 def _table_run(block: Table, caption: str) -> _Run:

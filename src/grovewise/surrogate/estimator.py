@@ -16,8 +16,8 @@ from ..plain import to_plain
 from .pipeline import PipelineSettings, run_pipeline
 from .program import ROUTINGS
 from .rules import round_tree, tree_text
-from .tree import (Scaling, fill_empty_leaves, n_leaves, objective, weighted_disagreement,
-                   with_majority_classes)
+from .tree import (Scaling, depth_used, fill_empty_leaves, n_leaves, objective,
+                   reachable_leaves, weighted_disagreement, with_majority_classes)
 
 MAX_DEPTH = 6
 # Sparsity costs below this share are treated as this share (the eps of 1 / max(f, eps)).
@@ -75,7 +75,11 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     exact_tree_ : ObliqueTree
         The tree before rounding.
     rules_ : str
-        The tree as if/else text in original units.
+        The tree as if/else text in original units; its first line gives the depth used.
+    depth_used_ : int
+        Levels of ``tree_`` that actually split (``<= depth``; 0 when the tree is one leaf
+        and predicts one class for every row). No split of ``tree_`` has sides that predict
+        the same class: such a split is removed in every stage, predictions unchanged.
     status_ : str
         ``optimal`` (proved on every training row), ``optimal_on_sample`` (proved for the
         program's sample), ``time_limit``, ``node_limit``, ``cancelled``, ``greedy_fallback``
@@ -91,7 +95,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     fidelity_ : float
         Weighted training fidelity of the rounded tree (``exact_fidelity_`` before rounding).
     result_ : PipelineResult
-        Stages, certificate, sample size, read-back check.
+        Stages (each with its tree and ``depth_used``), certificate, sample size, read-back
+        check.
     """
 
     def __init__(self, depth=2, max_features_per_split=None, alpha=0.0, min_leaf_size=1,
@@ -172,7 +177,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     # ------------------------------------------------------------------ fit
     def fit(self, X, y, sample_weight=None, *, must_link=None, allowed_features=None,
             feature_penalty=None, feature_names=None, progress=None, cancel=None,
-            mps_path=None):
+            mps_path=None, started=None):
         """Fit the surrogate.
 
         Parameters
@@ -198,6 +203,9 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             ``cancelled``).
         mps_path : str, optional
             Write the program HiGHS solves (on its sample) to this MPS file.
+        started : float, optional
+            ``time.perf_counter()`` when the time limit began (default: now), so that work
+            done before ``fit`` counts against ``time_limit`` too.
         """
         self._check_params()
         X, y = validate_data(self, X, y, dtype=np.float64)
@@ -221,7 +229,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             time_limit=float(self.time_limit), node_limit=self.node_limit, mip_gap=self.mip_gap,
             seed=seed, sample_size=self.sample_size, routing=self.routing,
             proximity_penalty=self.proximity_penalty, threads=self.threads,
-            mps_path=None if mps_path is None else str(mps_path))
+            mps_path=None if mps_path is None else str(mps_path), started=started)
         hard = pairs if self.proximity_penalty is None else None
         soft = pairs if self.proximity_penalty is not None else None
         res = run_pipeline(Xk, yk, wk, len(self.classes_), scaling, st, must_link=hard,
@@ -257,11 +265,15 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         K = len(self.classes_)
         exact = with_majority_classes(res.tree, Xs, yk, wk, K)
         rounded, rules = round_tree(exact, Xs)
+        # if rounding moved a point, its leaves' classes are assigned anew, and a split that
+        # then decides nothing goes (with_majority_classes): its rule goes with it
         rounded = with_majority_classes(rounded, Xs, yk, wk, K)
+        rules = [r for r in rules if rounded.splits[r.node]]
         names = self._names(feature_names, p)
         self.exact_tree_ = exact
         self.tree_ = rounded
         self.rules_list_ = rules
+        self.depth_used_ = depth_used(rounded)
         self.feature_names_ = names
         self.result_ = res
         # the baseline was fit on class indices; give it the labels so it predicts like us
@@ -322,8 +334,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     def export_text(self) -> str:
         """The rules as text (``rules_``), with status, fidelity and certificate."""
         check_is_fitted(self)
-        head = [f"# oblique surrogate, depth {self.depth}: status {self.status_}, "
-                f"winner {self.winner_}",
+        head = [f"# oblique surrogate: status {self.status_}, winner {self.winner_}",
                 f"# training fidelity {self.fidelity_:.4f} (rounded rules), "
                 f"{self.exact_fidelity_:.4f} (exact)",
                 f"# objective {self.objective_:.6g}, bound "
@@ -336,13 +347,15 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         check_is_fitted(self)
         names = self.feature_names_
         classes = [c.item() if hasattr(c, "item") else c for c in self.classes_]
+        reach = set(reachable_leaves(self.tree_).tolist())
         leaves = [{"leaf": l, "class": classes[int(self.tree_.leaf_class[l])],
-                   "rows": int(self.leaf_rows_[l]),
+                   "reachable": l in reach, "rows": int(self.leaf_rows_[l]),
                    "weight_per_class": self.tree_.leaf_weight[l].tolist(),
                    "fidelity": None if np.isnan(self.leaf_fidelity_[l]) else
                    float(self.leaf_fidelity_[l])} for l in range(n_leaves(self.depth))]
         return {
-            "kind": "oblique_surrogate", "depth": int(self.depth), "feature_names": names,
+            "kind": "oblique_surrogate", "depth": int(self.depth),
+            "depth_used": int(self.depth_used_), "feature_names": names,
             "classes": classes, "rules": [r.to_dict(names) for r in self.rules_list_],
             "leaves": leaves, "tree_scaled": self.tree_.to_dict(),
             "status": self.status_, "winner": self.winner_, "objective": self.objective_,

@@ -15,10 +15,17 @@ from .tree import ObliqueTree, Scaling, n_branch_nodes, n_leaves
 
 
 def fit_greedy(X: np.ndarray, y: np.ndarray, w: np.ndarray, depth: int,
-               min_leaf_size: int = 1, random_state: int | None = None) -> DecisionTreeClassifier:
-    """CART of ``depth`` on (X, y) with sample weights ``w`` (y: class indices)."""
+               min_leaf_size: int = 1, random_state: int | None = None,
+               usable: np.ndarray | None = None) -> DecisionTreeClassifier:
+    """CART of ``depth`` on (X, y) with sample weights ``w`` (y: class indices).
+
+    ``usable`` (a boolean mask over the features) keeps the baseline to the features the
+    surrogate may use at some depth: the others are held constant, so CART never splits on
+    them, and the comparison is between trees over the same features."""
     est = DecisionTreeClassifier(max_depth=depth, min_samples_leaf=max(1, int(min_leaf_size)),
                                  random_state=random_state)
+    if usable is not None and not np.all(usable):
+        X = np.where(np.asarray(usable, dtype=bool)[None, :], X, 0.0)
     return est.fit(X, y, sample_weight=w)
 
 

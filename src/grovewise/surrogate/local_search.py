@@ -24,10 +24,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from .program import MIN_MARGIN
-from .tree import (ObliqueTree, n_branch_nodes, node_depth, objective, with_majority_classes)
+from .sweep_kernel import best_cuts
+from .tree import (ObliqueTree, n_branch_nodes, node_depth, objective, subtree_branch_nodes,
+                   with_majority_classes)
 
-# Work per sweep chunk: points x directions x (leaves x classes) floats.
-_CHUNK_CELLS = 4_000_000
+# Projections held at once per sweep chunk: points x directions.
+_CHUNK_CELLS = 2_000_000
 
 
 @dataclass
@@ -39,7 +41,6 @@ class SearchSettings:
     alpha: float = 0.0
     max_features: int | None = None
     min_leaf_size: int = 1
-    time_budget: float = 5.0
     pair_features: int = 10
     angles: int = 16
     max_passes: int = 6
@@ -58,7 +59,7 @@ def improve(tree: ObliqueTree, Xs: np.ndarray, y: np.ndarray, w: np.ndarray, n_c
     some is repaired first (fewer separated groups wins over a lower objective).
     """
     count = np.ones(Xs.shape[0]) if count is None else count
-    end = deadline if deadline is not None else time.perf_counter() + settings.time_budget
+    end = deadline if deadline is not None else np.inf  # None: passes alone bound the work
     best = with_majority_classes(tree, Xs, y, w, n_classes)
     score = objective(best, Xs, y, w, settings.alpha, settings.penalty)
     viol = separated_groups(best, Xs, group)
@@ -67,7 +68,8 @@ def improve(tree: ObliqueTree, Xs: np.ndarray, y: np.ndarray, w: np.ndarray, n_c
         for t in range(n_branch_nodes(tree.depth)):
             if time.perf_counter() > end or (should_stop is not None and should_stop()):
                 return best, score
-            cand = _improve_node(best, t, Xs, y, w, count, n_classes, settings, group=group)
+            cand = _improve_node(best, t, Xs, y, w, count, n_classes, settings, group=group,
+                                 deadline=deadline, should_stop=should_stop)
             if cand is None:
                 continue
             cand, cs, cv = _scored(cand, Xs, y, w, n_classes, settings, group)
@@ -148,8 +150,13 @@ def _local_leaf(tree: ObliqueTree, Xs: np.ndarray, start: int) -> tuple[np.ndarr
 
 def _improve_node(tree: ObliqueTree, t: int, Xs: np.ndarray, y: np.ndarray, w: np.ndarray,
                   count: np.ndarray, K: int, st: SearchSettings,
-                  only_current: bool = False, group: np.ndarray | None = None) -> ObliqueTree | None:
-    """The best split of node t with the rest of the tree fixed (None if nothing changes)."""
+                  only_current: bool = False, group: np.ndarray | None = None,
+                  deadline: float | None = None, should_stop=None) -> ObliqueTree | None:
+    """The best split of node t with the rest of the tree fixed (None if nothing changes).
+
+    Past ``deadline``, or once ``should_stop()`` says so, the directions not yet swept are
+    skipped (the node's current direction always is swept, so the result is never worse
+    than the current split)."""
     here = _reach(tree, Xs, t)
     if not here.any():
         return None
@@ -159,7 +166,8 @@ def _improve_node(tree: ObliqueTree, t: int, Xs: np.ndarray, y: np.ndarray, w: n
     left_leaf, n_sub = _local_leaf(tree, Xt, 2 * t + 1)
     right_leaf, _ = _local_leaf(tree, Xt, 2 * t + 2)
     sweep = _Sweep(Xt, yt, wt, ct, left_leaf, right_leaf, n_sub, K, st,
-                   None if group is None else group[here])
+                   None if group is None else group[here], deadline=deadline,
+                   should_stop=should_stop)
     pen_row = st.alpha * st.penalty[d]
     cands: list[np.ndarray] = []
     if tree.splits[t]:
@@ -199,14 +207,10 @@ def _improve_node(tree: ObliqueTree, t: int, Xs: np.ndarray, y: np.ndarray, w: n
 
 
 def _clear_subtree(tree: ObliqueTree, node: int) -> None:
-    nb = n_branch_nodes(tree.depth)
-    stack = [node]
-    while stack:
-        n = stack.pop()
-        if n < nb:
-            tree.coef[n] = 0.0
-            tree.offset[n] = 0.0
-            stack.extend([2 * n + 1, 2 * n + 2])
+    if node < n_branch_nodes(tree.depth):
+        below = subtree_branch_nodes(node, tree.depth)
+        tree.coef[below] = 0.0
+        tree.offset[below] = 0.0
 
 
 def _unit(A: np.ndarray) -> np.ndarray:
@@ -267,63 +271,48 @@ def _coordinate_moves(A, cost, offs, feats, sweep, pen_row, st: SearchSettings, 
 
 
 class _Sweep:
-    """Exact best cut per direction for the points at one node (classes free in the leaves)."""
+    """Exact best cut per direction for the points at one node (classes free in the leaves).
+
+    The sweep itself is compiled (:mod:`.sweep_kernel`), one direction per core."""
 
     def __init__(self, X, y, w, count, left_leaf, right_leaf, n_sub, K, st: SearchSettings,
-                 group: np.ndarray | None = None):
+                 group: np.ndarray | None = None, deadline: float | None = None,
+                 should_stop=None):
         self.X, self.n_sub, self.K, self.st = X, n_sub, K, st
+        self.deadline, self.should_stop = deadline, should_stop
         n = X.shape[0]
-        self.gid = None
+        self.gid = np.full(n, -1, dtype=np.int64)
+        self.n_groups = 0
         if group is not None:
             # only groups with two or more points here can be separated by a cut
             _, inv, cnt = np.unique(group, return_inverse=True, return_counts=True)
             multi = cnt[inv] > 1
             if multi.any():
-                _, self.gid = np.unique(inv[multi], return_inverse=True)
-                self.gmask = multi
-        codes = n_sub * K
-        self.WL = np.zeros((n, codes))
-        self.WL[np.arange(n), left_leaf * K + y] = w
-        self.WR = np.zeros((n, codes))
-        self.WR[np.arange(n), right_leaf * K + y] = w
-        self.need_count = st.min_leaf_size > 1
-        if self.need_count:
-            self.CL = np.zeros((n, n_sub))
-            self.CL[np.arange(n), left_leaf] = count
-            self.CR = np.zeros((n, n_sub))
-            self.CR[np.arange(n), right_leaf] = count
+                _, ids = np.unique(inv[multi], return_inverse=True)
+                self.gid[multi] = ids
+                self.n_groups = int(ids.max()) + 1
+        self.left_leaf = np.ascontiguousarray(left_leaf, dtype=np.int64)
+        self.right_leaf = np.ascontiguousarray(right_leaf, dtype=np.int64)
+        self.left_code = self.left_leaf * K + y
+        self.right_code = self.right_leaf * K + y
+        self.w = np.ascontiguousarray(w, dtype=np.float64)
+        self.count = np.ascontiguousarray(count, dtype=np.float64)
 
-    def _leaf_cost(self, P: np.ndarray) -> np.ndarray:
-        """Weight outside each leaf's majority, summed over leaves; P (..., n_sub*K)."""
-        Q = P.reshape(P.shape[:-1] + (self.n_sub, self.K))
-        return (Q.sum(axis=-1) - Q.max(axis=-1)).sum(axis=-1)
-
-    def _size_ok(self, C: np.ndarray) -> np.ndarray:
-        m = self.st.min_leaf_size
-        return np.all((C <= 1e-9) | (C >= m - 1e-9), axis=-1)
-
-    def _separates(self, order: np.ndarray) -> np.ndarray:
-        """(n, m): True where the cut after sorted position r would split a group."""
-        n, m = order.shape
-        cols = np.arange(m)
-        rank = np.empty_like(order)
-        rank[order, cols[None, :]] = np.arange(n)[:, None]
-        r = rank[self.gmask]  # (members, m)
-        G = int(self.gid.max()) + 1
-        lo = np.full((G, m), n)
-        hi = np.full((G, m), -1)
-        np.minimum.at(lo, self.gid, r)
-        np.maximum.at(hi, self.gid, r)
-        diff = np.zeros((n + 1, m), dtype=np.int64)
-        np.add.at(diff, (lo, np.broadcast_to(cols, lo.shape)), 1)
-        np.add.at(diff, (hi, np.broadcast_to(cols, hi.shape)), -1)
-        return np.cumsum(diff, axis=0)[:n] > 0
+    def _out_of_time(self) -> bool:
+        if self.deadline is not None and time.perf_counter() > self.deadline:
+            return True
+        return self.should_stop is not None and bool(self.should_stop())
 
     def all_right_cost(self) -> float:
-        tot = self.WR.sum(axis=0)
-        if self.need_count and not self._size_ok(self.CR.sum(axis=0)[None])[0]:
-            return np.inf
-        return float(self._leaf_cost(tot[None])[0])
+        """Every point right: the cost of not splitting here (inf if a leaf is too small)."""
+        tot = np.zeros(self.n_sub * self.K)
+        np.add.at(tot, self.right_code, self.w)
+        if self.st.min_leaf_size > 1:
+            rows = np.bincount(self.right_leaf, weights=self.count, minlength=self.n_sub)
+            if np.any((rows > 1e-9) & (rows < self.st.min_leaf_size - 1e-9)):
+                return np.inf
+        Q = tot.reshape(self.n_sub, self.K)
+        return float((Q.sum(axis=1) - Q.max(axis=1)).sum())
 
     def run(self, A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Best cost and offset (midpoint of the cut) for each direction row of ``A``."""
@@ -333,28 +322,15 @@ class _Sweep:
         off = np.zeros(m_all)
         if n < 2 or m_all == 0:
             return cost, off
-        per = max(1, _CHUNK_CELLS // max(1, n * self.WL.shape[1]))
-        totR = self.WR.sum(axis=0)
+        # small chunks: the clock and the cancel are looked at between two of them
+        per = max(16, min(64, _CHUNK_CELLS // max(1, n)))
         for s in range(0, m_all, per):
-            Ab = A[s:s + per]
-            V = self.X @ Ab.T  # (n, m)
-            order = np.argsort(V, axis=0, kind="stable")
-            Vs = np.take_along_axis(V, order, axis=0)
-            PL = np.cumsum(self.WL[order], axis=0)  # (n, m, codes): first r+1 points left
-            PR = totR[None, None, :] - np.cumsum(self.WR[order], axis=0)
-            c = self._leaf_cost(PL) + self._leaf_cost(PR)  # cut after sorted position r
-            valid = np.zeros_like(c, dtype=bool)
-            valid[:-1] = (Vs[1:] - Vs[:-1]) >= self.st.min_gap
-            if self.need_count:
-                CL = np.cumsum(self.CL[order], axis=0)
-                CR = self.CR.sum(axis=0)[None, None, :] - np.cumsum(self.CR[order], axis=0)
-                valid &= self._size_ok(CL) & self._size_ok(CR)
-            if self.gid is not None:
-                valid &= ~self._separates(order)
-            c = np.where(valid, c, np.inf)
-            r = np.argmin(c, axis=0)
-            cols = np.arange(Ab.shape[0])
-            cost[s:s + per] = c[r, cols]
-            rr = np.minimum(r + 1, n - 1)
-            off[s:s + per] = 0.5 * (Vs[r, cols] + Vs[rr, cols])
+            if s and self._out_of_time():
+                break  # directions left unswept keep cost inf
+            V = np.ascontiguousarray(self.X @ A[s:s + per].T)  # (n, directions)
+            c, o = best_cuts(V, self.left_code, self.right_code, self.w, self.left_leaf,
+                             self.right_leaf, self.count, self.n_sub, self.K,
+                             float(self.st.min_gap), float(self.st.min_leaf_size), self.gid,
+                             self.n_groups)
+            cost[s:s + per], off[s:s + per] = c, o
         return cost, off

@@ -19,9 +19,10 @@ from ..analysis.usage import depth_usage
 from ..errors import DataError, SettingError
 from ..forest import Forest
 from ..plain import to_plain
+from ..sampling import stratified_rows
 from .estimator import PENALTY_EPS, ObliqueSurrogate
 from .solver import versions
-from .tree import n_leaves
+from .tree import n_leaves, reachable_leaves
 
 # Defaults for readable rules, from the benchmark's readability grid (test_readability_defaults:
 # depth 2, random forest, breast cancer / wine / make_classification, 10 s per fit). Mean
@@ -36,7 +37,11 @@ USAGE_FLOOR = 0.01
 _ESTIMATOR_OPTIONS = {"max_features_per_split", "alpha", "min_leaf_size", "time_limit",
                       "random_state", "node_limit", "mip_gap", "proximity_penalty",
                       "sample_size", "routing", "threads"}
+# Training rows among which must-link pairs are looked for: pairs of rows cost far more than
+# rows, and the program sees a sample of a few thousand points anyway.
+PROXIMITY_ROWS = 3_000
 _MIMIC_OPTIONS = {"forbidden_features", "usage_floor", "usage_weight", "progress", "cancel",
+                  "proba", "proximity_rows", "started",
                   "mps_path"}
 
 
@@ -121,7 +126,8 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
     X = forest.check_X(X)
     if np.isnan(X).any():
         rows = np.flatnonzero(np.isnan(X).any(axis=1))
-        raise DataError(f"{rows.size} row(s) have missing values (first: {rows[:5].tolist()}); "
+        raise DataError(f"{rows.size} row(s) have missing values (first, numbered from 1: "
+                        f"{(rows[:5] + 1).tolist()}); "
                         "the surrogate tree needs complete rows: drop or impute them first")
     opts = dict(options)
     progress, cancel = opts.pop("progress", None), opts.pop("cancel", None)
@@ -129,6 +135,9 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
     forbidden = opts.pop("forbidden_features", None)
     floor = float(opts.pop("usage_floor", USAGE_FLOOR))
     weight_kind = opts.pop("usage_weight", "count")
+    given_proba = opts.pop("proba", None)
+    prox_rows = int(opts.pop("proximity_rows", PROXIMITY_ROWS))
+    started = opts.pop("started", None)
     unknown = set(opts) - _ESTIMATOR_OPTIONS
     if unknown:
         known = sorted(_ESTIMATOR_OPTIONS | _MIMIC_OPTIONS)
@@ -136,18 +145,19 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
     params = {**READABLE_DEFAULTS, "time_limit": 60.0, **opts}
     seed = params.get("random_state")
 
-    proba = forest.predict_proba(X)
+    proba = forest.predict_proba(X) if given_proba is None else np.asarray(given_proba)
     yhat = np.argmax(proba, axis=1)
     w = proba[np.arange(X.shape[0]), yhat]
     train, hold = _split(holdout, yhat, seed)
     allowed, penalty, f = _feature_tables(forest, depth, floor, forbidden, weight_kind)
-    pairs, prox = _proximity(forest, X[train], yhat[train], proximity_threshold)
+    pairs, prox = _proximity(forest, X[train], yhat[train], proximity_threshold, prox_rows,
+                             seed or 0)
 
     est = ObliqueSurrogate(depth=depth, **params)
     labels = forest.classes_[yhat]
     est.fit(X[train], labels[train], w[train], must_link=pairs, allowed_features=allowed,
             feature_penalty=penalty, feature_names=forest.feature_names,
-            progress=progress, cancel=cancel, mps_path=mps_path)
+            progress=progress, cancel=cancel, mps_path=mps_path, started=started)
     prox["separated_pairs"] = _separated(est, X[train], pairs)
     greedy = est.greedy_
     res = est.result_
@@ -244,8 +254,10 @@ def _feature_tables(forest: Forest, depth: int, floor: float, forbidden, weight_
     return allowed, penalty, f
 
 
-def _proximity(forest: Forest, Xtr: np.ndarray, ytr: np.ndarray, threshold):
-    """Training pairs at or above the threshold that the forest also gives the same class.
+def _proximity(forest: Forest, Xtr: np.ndarray, ytr: np.ndarray, threshold, max_rows: int,
+               seed: int):
+    """Training pairs at or above the threshold that the forest also gives the same class,
+    among at most ``max_rows`` training rows (a seeded sample stratified by class beyond).
 
     Pairs of different predicted classes are left out: chained through other pairs they can
     tie a whole data set into one group (seen with boosted trees, whose leaves are shared
@@ -253,10 +265,13 @@ def _proximity(forest: Forest, Xtr: np.ndarray, ytr: np.ndarray, threshold):
     """
     if threshold is None:
         return None, {"threshold": None, "pairs": 0}
-    i, j, _p = proximity_pairs(forest, Xtr, threshold)
-    same = ytr[i] == ytr[j]
-    pairs = np.stack([i[same], j[same]], axis=1).astype(np.int64)
+    sample = stratified_rows(ytr, Xtr.shape[0], max_rows, seed)
+    rows = sample.rows
+    i, j, _p = proximity_pairs(forest, Xtr[rows], threshold)
+    same = ytr[rows[i]] == ytr[rows[j]]
+    pairs = np.stack([rows[i[same]], rows[j[same]]], axis=1).astype(np.int64)
     return pairs, {"threshold": float(threshold), "pairs": int(pairs.shape[0]),
+                   "searched": sample.to_dict(),
                    "pairs_across_classes_dropped": int(np.count_nonzero(~same)),
                    "rows_in_pairs": int(np.unique(pairs).size)}
 
@@ -288,9 +303,11 @@ def _fidelity(est, greedy, X, yhat, w, train, hold):
 def _leaves(est, X, yhat, train, hold) -> list[dict]:
     leaf = est.apply(X)
     pred = est.predict(X)
+    reach = set(reachable_leaves(est.tree_).tolist())
     out = []
     for l in range(n_leaves(est.depth)):
-        row = {"leaf": l, "class": to_plain(est.classes_[int(est.tree_.leaf_class[l])])}
+        row = {"leaf": l, "class": to_plain(est.classes_[int(est.tree_.leaf_class[l])]),
+               "reachable": l in reach}
         for part, rows in (("train", train), ("holdout", hold)):
             here = rows[leaf[rows] == l]
             row[f"{part}_rows"] = int(here.size)

@@ -26,10 +26,11 @@ from ..errors import SettingError
 from .greedy import fit_greedy, oblique_from_greedy
 from .local_search import SearchSettings, improve, refit_offsets, separated_groups
 from .program import ProgramData, build_program, choose_margin
+from ..sampling import stratified_rows
 from .sample import Sample, auto_sample_size, build_sample, union_find_groups
 from .solver import Cancel, Progress, SolveResult, compile_program, solve, write_compiled_mps
-from .tree import (ObliqueTree, Scaling, objective, trivial_tree, weighted_disagreement,
-                   with_majority_classes)
+from .tree import (ObliqueTree, Scaling, depth_used, objective, trivial_tree,
+                   weighted_disagreement, with_majority_classes, without_empty_splits)
 
 
 @dataclass
@@ -54,11 +55,25 @@ class PipelineSettings:
     threads: int | None = None
     run_program: bool = True
     mps_path: str | None = None
+    # Rows the node-by-node stages search on (a seeded sample, stratified by class, beyond
+    # it); every candidate is still scored on every row. Keeps a stage's sweeps in seconds
+    # on large data, so the program gets its share of the time limit.
+    search_rows: int = 10_000
+    started: float | None = None  # perf_counter() when the time limit began (default: now)
+
+    @property
+    def exact(self) -> bool:
+        """A node limit asks for a result that does not depend on the clock: every stage
+        then stops on counts (passes, nodes), never on time."""
+        return self.node_limit is not None
 
 
 @dataclass
 class StageRecord:
-    """One candidate: its stage, full-training objective and fidelity, and when it was ready."""
+    """One candidate: its stage, full-training objective and fidelity, and when it was ready.
+
+    ``tree`` is the candidate as scored (leaf classes assigned, splits that decide nothing
+    removed); ``depth_used`` its levels that split. ``to_dict`` leaves the tree out."""
 
     name: str
     objective: float
@@ -67,9 +82,11 @@ class StageRecord:
     duration: float
     separated_groups: int = 0
     note: str = ""
+    depth_used: int | None = None
+    tree: ObliqueTree | None = field(default=None, repr=False)
 
     def to_dict(self) -> dict:
-        return dict(self.__dict__)
+        return {k: v for k, v in self.__dict__.items() if k != "tree"}
 
 
 @dataclass
@@ -131,7 +148,8 @@ class _Board:
         now = time.perf_counter()
         self.stages.append(StageRecord(name=name, objective=obj, fidelity=fid,
                                        elapsed=now - self.t0, duration=now - started,
-                                       separated_groups=sep, note=note))
+                                       separated_groups=sep, note=note,
+                                       depth_used=depth_used(tree), tree=tree))
         if self.greedy_fidelity is None:
             self.greedy_fidelity = fid
         below = fid < self.greedy_fidelity - 1e-12
@@ -163,7 +181,7 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
     ``must_link`` row pairs must share a leaf (hard); ``soft_pairs`` row pairs cost
     ``st.proximity_penalty`` each when separated (program stage only).
     """
-    t0 = time.perf_counter()
+    t0 = time.perf_counter() if st.started is None else st.started
     deadline = t0 + st.time_limit
     rng = np.random.default_rng(st.seed)
     Xs = scaling.transform(X)
@@ -172,16 +190,41 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
     row_group = union_find_groups(n, must_link)
     group = row_group if must_link is not None and len(must_link) else None
     board = _Board(Xs, y, wn, n_classes, st, group, t0)
+    work = _SearchRows(Xs, y, wn, group, st)
 
-    def emit(stage: str) -> None:
+    # what follows the last stage (scoring the answer on every row, rounding the rules) must
+    # fit in the time limit too
+    tail = min(1.0, 0.05 * st.time_limit + 0.1)
+
+    def until(share_end: float | None) -> float | None:
+        """The clock a stage stops at, or None (counts only) in exact mode."""
+        if st.exact:
+            return None
+        return deadline if share_end is None else min(deadline, share_end)
+
+    def emit(stage: str, note: str = "") -> None:
         if progress is not None:
-            rec = board.stages[-1]
-            progress(Progress(elapsed=time.perf_counter() - t0, incumbent=rec.objective,
-                              bound=None, gap=None, stage=stage))
+            inc = board.objective if board.best is not None else None
+            progress(Progress(elapsed=time.perf_counter() - t0, incumbent=inc, bound=None,
+                              gap=None, stage=stage, note=note or "best on every training row"))
+
+    last_beat = [0.0]
+
+    def alive(stage: str, note: str = "") -> Callable[[], bool]:
+        """A stage's stop check, which also reports it is running (at most every 0.5 s)."""
+        def check() -> bool:
+            now = time.perf_counter()
+            if now - last_beat[0] >= 0.5:
+                last_beat[0] = now
+                emit(stage, note)
+            return _stop(cancel)
+        return check
 
     # 1. greedy on every row
+    emit("greedy", f"fitting the greedy tree on {n:,} rows")
     s0 = time.perf_counter()
-    greedy = fit_greedy(X, y, w, st.depth, st.min_leaf_size, random_state=st.seed)
+    greedy = fit_greedy(X, y, w, st.depth, st.min_leaf_size, random_state=st.seed,
+                        usable=st.admissible.any(axis=0))
     gtree = board.add("greedy", oblique_from_greedy(greedy, scaling, st.depth), s0)
     first_time = time.perf_counter() - t0
     emit("greedy")
@@ -194,17 +237,17 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
                             max_features=st.max_features, min_leaf_size=st.min_leaf_size)
     if n_classes > 1 and not _stop(cancel):
         s0 = time.perf_counter()
-        ls_deadline = min(deadline, s0 + st.local_search_share * st.time_limit)
-        t_ls, _ = improve(gtree, Xs, y, wn, n_classes, search, group=group,
-                          deadline=ls_deadline, should_stop=lambda: _stop(cancel))
-        board.add("local_search", t_ls, s0)
+        ls_deadline = until(s0 + st.local_search_share * st.time_limit)
+        t_ls, _ = improve(gtree, work.Xs, work.y, work.w, n_classes, search, group=work.group,
+                          deadline=ls_deadline, should_stop=alive("local_search"))
+        board.add("local_search", t_ls, s0, note=work.note)
         emit("local_search")
         if group is not None and board.name != "local_search" and not _stop(cancel):
             # keeping every group costs too much fidelity: search without them as well
             s0 = time.perf_counter()
-            t_free, _ = improve(gtree, Xs, y, wn, n_classes, search,
-                                deadline=min(deadline, s0 + st.local_search_share * st.time_limit),
-                                should_stop=lambda: _stop(cancel))
+            t_free, _ = improve(gtree, work.Xs, work.y, work.w, n_classes, search,
+                                deadline=until(s0 + st.local_search_share * st.time_limit),
+                                should_stop=alive("local_search_free"))
             board.add("local_search_free", t_free, s0, note="must-link groups not enforced")
             emit("local_search_free")
 
@@ -230,6 +273,7 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         keep_groups = group is not None and board.best[0][1] == 0
         sample = build_sample(Xs, y, wn, n_classes, row_group if keep_groups else
                               np.arange(n), size, rng)
+        emit("program", f"building the program on {sample.size:,} points")
         prog = _build(sample, st, n_classes, board, gtree, soft_pairs, n)
         cp = compile_program(prog)
         build_time = prog.build_time + cp.compile_time
@@ -241,10 +285,14 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         else:
             start, start_from = _start(prog, cp, board, gtree)
 
+            on_sample = (f"objective on the program's {sample.size:,} points, not on every "
+                         "row")
+
             def relay(p: Progress) -> None:
                 if progress is not None:
                     progress(Progress(elapsed=time.perf_counter() - t0, incumbent=p.incumbent,
-                                      bound=p.bound, gap=p.gap, nodes=p.nodes, stage="program"))
+                                      bound=p.bound, gap=p.gap, nodes=p.nodes, stage="program",
+                                      note=on_sample))
 
             cert = solve(cp, start=start, time_limit=left, node_limit=st.node_limit,
                          mip_gap=st.mip_gap, seed=st.seed, threads=st.threads,
@@ -261,12 +309,13 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
                 # 4. polish on every row
                 if not _stop(cancel):
                     s1 = time.perf_counter()
-                    pg = group if keep_groups else None
-                    t_pol, _ = refit_offsets(t_prog, Xs, y, wn, n_classes, search, group=pg)
-                    t_pol, _ = improve(t_pol, Xs, y, wn, n_classes, search, group=pg,
-                                       deadline=max(deadline, time.perf_counter() + 0.5),
-                                       should_stop=lambda: _stop(cancel))
-                    board.add("polish", t_pol, s1)
+                    pg = work.group if keep_groups else None
+                    t_pol, _ = refit_offsets(t_prog, work.Xs, work.y, work.w, n_classes, search,
+                                             group=pg)
+                    t_pol, _ = improve(t_pol, work.Xs, work.y, work.w, n_classes, search,
+                                       group=pg, deadline=until(deadline - tail),
+                                       should_stop=alive("polish"))
+                    board.add("polish", t_pol, s1, note=work.note)
                     emit("polish")
             else:
                 note = f"the program found no incumbent ({cert.status})"
@@ -283,6 +332,21 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         program_size=None if prog is None else prog.size(), readback=readback,
         first_candidate_time=first_time, build_time=build_time, solve_time=solve_time,
         total_time=time.perf_counter() - t0, history=[] if cert is None else cert.history)
+
+
+class _SearchRows:
+    """The rows the node-by-node stages search on: every training row up to
+    ``search_rows``, else a seeded sample stratified by class, its weights summing to 1."""
+
+    def __init__(self, Xs, y, wn, group, st: PipelineSettings) -> None:
+        n = Xs.shape[0]
+        sample = stratified_rows(y, n, st.search_rows, st.seed, "class")
+        rows = sample.rows
+        self.Xs, self.y = Xs[rows], y[rows]
+        self.w = wn[rows] / wn[rows].sum()
+        self.group = None if group is None else group[rows]
+        self.note = (f"searched on {sample.describe()}; scored on every row"
+                     if sample.sampled else "")
 
 
 def _stop(cancel: Cancel | None) -> bool:
@@ -317,19 +381,27 @@ def _start(prog, cp, board: _Board, gtree: ObliqueTree):
 
 
 def _readback(prog, value, tree: ObliqueTree) -> dict:
-    """Does the tree read from the solution route the program's points as its z did?"""
+    """Does the tree read from the solution route the program's points as its z did, and
+    does it, with its splits that decide nothing removed, still predict what the program
+    counted? (Routing is checked on the tree as read; pruning moves points between leaves
+    of one class, so the disagreement is taken from the pruned tree.)"""
     d = prog.data
     z_leaf = prog.program_leaves(value)
     t_leaf = tree.route_scaled(d.Xs)
     mismatch = int(np.count_nonzero(z_leaf != t_leaf))
+    pruned = without_empty_splits(tree)
+    p_leaf = pruned.route_scaled(d.Xs)
+    changed = int(np.count_nonzero(pruned.leaf_class[p_leaf] != tree.leaf_class[t_leaf]))
     g_leaf = np.zeros(d.n_groups, dtype=np.int64)
-    g_leaf[d.group] = t_leaf
-    pred = tree.leaf_class[g_leaf]
+    g_leaf[d.group] = p_leaf
+    pred = pruned.leaf_class[g_leaf]
     tree_dis = float(d.class_weight.sum() - d.class_weight[np.arange(d.n_groups), pred].sum())
     prog_dis = prog.program_disagreement(value)
+    removed = int(np.count_nonzero(tree.splits & ~pruned.splits))
     return {"points": int(d.Xs.shape[0]), "routing_mismatches": mismatch,
+            "splits_removed": removed, "pruning_prediction_changes": changed,
             "tree_disagreement": tree_dis, "program_disagreement": prog_dis,
-            "consistent": mismatch == 0 and abs(tree_dis - prog_dis) <= 1e-6}
+            "consistent": mismatch == 0 and changed == 0 and abs(tree_dis - prog_dis) <= 1e-6}
 
 
 def _status(board: _Board, cert, prog, sample, cancel, note):

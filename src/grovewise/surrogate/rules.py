@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .tree import ObliqueTree, n_branch_nodes, node_depth
+from .tree import ObliqueTree, depth_used, n_branch_nodes, node_depth
 
 
 @dataclass
@@ -146,12 +146,27 @@ def _rule(t: int, cr: np.ndarray, x: float, digits: int) -> Rule:
                 op="<", digits=digits)
 
 
+def depth_words(used: int, depth: int) -> str:
+    """The depth a tree uses, said plainly next to the depth it was allowed."""
+    if used >= depth:
+        return f"depth {depth}"
+    why = ("no split changes the answer, so the tree is one leaf" if used == 0 else
+           "a split whose sides predict the same class is left out")
+    return f"depth {used} used of the {depth} allowed: {why}"
+
+
 def tree_text(tree: ObliqueTree, rules: list[Rule], names: list[str], classes: list,
               leaf_rows: np.ndarray | None = None, leaf_fidelity: np.ndarray | None = None) -> str:
-    """The tree as nested if/else text, in original units."""
+    """The tree as nested if/else text, in original units.
+
+    The first line says the depth the tree uses beside the depth it was allowed; a tree
+    that is one leaf reads ``predict X for every row``.
+    Nodes that do not split are skipped (every point goes right), so only the splits
+    that decide something are written."""
     by_node = {r.node: r for r in rules}
     nb = n_branch_nodes(tree.depth)
-    lines: list[str] = []
+    used = depth_used(tree)
+    lines: list[str] = [f"# {depth_words(used, tree.depth)}"]
 
     def leaf_line(node: int, indent: str) -> None:
         l = node - nb
@@ -159,9 +174,11 @@ def tree_text(tree: ObliqueTree, rules: list[Rule], names: list[str], classes: l
         if leaf_rows is not None:
             extra.append(f"{int(leaf_rows[l])} rows")
         if leaf_fidelity is not None and np.isfinite(leaf_fidelity[l]):
-            extra.append(f"fidelity {leaf_fidelity[l]:.3f}")
+            extra.append(f"weighted fidelity {100 * leaf_fidelity[l]:.1f}% on training rows")
         tail = f"  ({', '.join(extra)})" if extra else ""
-        lines.append(f"{indent}predict {classes[int(tree.leaf_class[l])]}  [leaf {l}]{tail}")
+        every = " for every row" if used == 0 else ""
+        lines.append(f"{indent}predict {classes[int(tree.leaf_class[l])]}{every}  "
+                     f"[leaf {l}]{tail}")
 
     def visit(node: int, indent: str) -> None:
         if node >= nb:

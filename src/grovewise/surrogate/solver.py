@@ -44,10 +44,11 @@ class Progress:
     gap: float | None
     nodes: int = 0
     stage: str = "program"
+    note: str = ""  # what the numbers are measured on, or what the stage is doing
 
     def to_dict(self) -> dict:
         return {"elapsed": self.elapsed, "incumbent": self.incumbent, "bound": self.bound,
-                "gap": self.gap, "nodes": self.nodes, "stage": self.stage}
+                "gap": self.gap, "nodes": self.nodes, "stage": self.stage, "note": self.note}
 
 
 class Cancel:

@@ -8,6 +8,11 @@ min/max of the data the tree was fit on). A node whose coefficients are all zero
 not split: ``0 < offset`` is false for the offsets we keep (0), so every point goes right,
 which is the convention of the program (``d_t = 0``).
 
+No split decides nothing: a split whose reachable leaves all predict one class (``if ...:
+predict A else: predict A``) is removed with its subtree, which then states its one leaf
+(:func:`without_empty_splits`, applied wherever leaf classes are assigned, so in every stage).
+:func:`depth_used` gives the levels that still split.
+
 Scoring lives here too, so that every stage of the pipeline is measured the same way.
 """
 
@@ -46,6 +51,16 @@ def subtree_leaves(node: int, depth: int) -> np.ndarray:
     while lo < first:
         lo, hi = 2 * lo + 1, 2 * hi + 2
     return np.arange(lo - first, hi - first + 1)
+
+
+def subtree_branch_nodes(node: int, depth: int) -> np.ndarray:
+    """Branch nodes (heap order) of the subtree of branch node ``node``, itself included."""
+    nb = n_branch_nodes(depth)
+    out, lo, hi = [], node, node
+    while lo < nb:
+        out.extend(range(lo, hi + 1))
+        lo, hi = 2 * lo + 1, 2 * hi + 2
+    return np.array(out, dtype=np.int64)
 
 
 def side_leaves(node: int, depth: int) -> tuple[np.ndarray, np.ndarray]:
@@ -223,12 +238,114 @@ def with_majority_classes(tree: ObliqueTree, Xs: np.ndarray, y: np.ndarray, w: n
 
     An empty leaf takes the class of its nearest non-empty ancestor's points, so that a new
     point reaching it gets the answer the training data would have given one level up.
-    The per-leaf class weights are kept in ``leaf_weight``.
+    The per-leaf class weights are kept in ``leaf_weight``. Splits that then decide nothing
+    are removed (:func:`without_empty_splits`): every stage's tree passes through here.
     """
     leaf = tree.route_scaled(Xs)
     lw = class_weights_per_leaf(leaf, y, w, n_leaves(tree.depth), n_classes)
     filled = fill_empty_leaves(lw, tree.depth)
-    return tree.copy(leaf_class=np.argmax(filled, axis=1).astype(np.int64), leaf_weight=lw)
+    return without_empty_splits(
+        tree.copy(leaf_class=np.argmax(filled, axis=1).astype(np.int64), leaf_weight=lw))
+
+
+# ---------------------------------------------------------------------------- pruning
+def _reachable_nodes(split: np.ndarray) -> np.ndarray:
+    """Over every heap node (branch nodes, then leaves): can a point get there? Both
+    children of a node that splits, only the right child of one that does not."""
+    nb = split.shape[0]
+    reach = np.zeros(2 * nb + 1, dtype=bool)
+    reach[0] = True
+    for t in range(nb):
+        if reach[t]:
+            reach[2 * t + 2] = True
+            reach[2 * t + 1] = bool(split[t])
+    return reach
+
+
+def _class_sets(split: np.ndarray, leaf_class: np.ndarray) -> list[int]:
+    """Per heap node, the classes its reachable leaves predict, as a bit set (bit k: class
+    k), built bottom-up."""
+    nb = split.shape[0]
+    sets = [0] * nb + [1 << int(k) for k in leaf_class]
+    for t in range(nb - 1, -1, -1):
+        sets[t] = sets[2 * t + 2] | (sets[2 * t + 1] if split[t] else 0)
+    return sets
+
+
+def reachable_leaves(tree: ObliqueTree, node: int = 0) -> np.ndarray:
+    """Leaves (0 .. 2**depth - 1) a point at heap node ``node`` can reach."""
+    nb = n_branch_nodes(tree.depth)
+    split = tree.splits
+    out, stack = [], [node]
+    while stack:
+        t = stack.pop()
+        if t >= nb:
+            out.append(t - nb)
+        else:
+            stack.extend([2 * t + 2, 2 * t + 1] if split[t] else [2 * t + 2])
+    return np.sort(np.array(out, dtype=np.int64))
+
+
+def reachable_splits(tree: ObliqueTree) -> np.ndarray:
+    """Branch nodes that split and that a point can reach."""
+    split = tree.splits
+    return np.flatnonzero(split & _reachable_nodes(split)[:split.shape[0]])
+
+
+def empty_splits(tree: ObliqueTree) -> np.ndarray:
+    """Reachable splits whose reachable leaves all predict one class: the split decides
+    nothing (``if ...: predict A else: predict A``, or deeper, every leaf below A)."""
+    split = tree.splits
+    live = split & _reachable_nodes(split)[:split.shape[0]]
+    sets = _class_sets(live, tree.leaf_class)
+    return np.array([t for t in np.flatnonzero(live) if sets[t].bit_count() == 1],
+                    dtype=np.int64)
+
+
+def depth_used(tree: ObliqueTree) -> int:
+    """Levels of the tree that actually split (0 for a tree that is one leaf)."""
+    nodes = reachable_splits(tree)
+    return 0 if nodes.size == 0 else node_depth(int(nodes.max())) + 1
+
+
+def without_empty_splits(tree: ObliqueTree) -> ObliqueTree:
+    """The same predictions, with no split that decides nothing.
+
+    Splits no point can reach (below the left side of a node that does not split) are
+    cleared. A split whose reachable leaves all predict one class is removed with its
+    subtree: the node and every node below stop splitting (coefficients and offset 0, so
+    every point goes right, as ``d_t = 0`` in the program), every leaf below states that
+    class, and the subtree's ``leaf_weight`` moves to its rightmost leaf, where all its
+    points now go. Every point reaching the node got that class before and gets it now, so
+    predictions on any data are unchanged (and a leaf's class stays its weighted
+    majority); only the sparsity penalty can fall. :func:`with_majority_classes` calls this,
+    so it is the one place every stage's tree is pruned.
+    """
+    split = tree.splits
+    nb = split.shape[0]
+    if nb == 0:
+        return tree
+    live = split & _reachable_nodes(split)[:nb]
+    sets = _class_sets(live, tree.leaf_class)
+    empty = [t for t in np.flatnonzero(live) if sets[t].bit_count() == 1]
+    if not empty and np.array_equal(live, split):
+        return tree
+    out = tree.copy()
+    out.coef[~live] = 0.0
+    out.offset[~live] = 0.0
+    for t in empty:  # ascending heap order is top-down: a removed node takes its subtree
+        if not np.any(out.coef[t] != 0.0):
+            continue  # already inside a removed subtree
+        below = subtree_branch_nodes(int(t), tree.depth)
+        out.coef[below] = 0.0
+        out.offset[below] = 0.0
+        leaves = subtree_leaves(int(t), tree.depth)
+        out.leaf_class[leaves] = sets[t].bit_length() - 1
+        if out.leaf_weight is not None:
+            gathered = out.leaf_weight[leaves].sum(axis=0)
+            out.leaf_weight[leaves] = 0.0
+            out.leaf_weight[leaves[-1]] = gathered
+    return out
 
 
 def fill_empty_leaves(leaf_weight: np.ndarray, depth: int) -> np.ndarray:
