@@ -50,6 +50,14 @@ class TickProbe:
         t = np.array([x for x in self.ticks if start <= x <= end])
         return float(np.diff(t).max()) if t.size > 1 else math.inf
 
+    def mark(self) -> int:
+        """A mark before an action; :meth:`gap_since` counts from the last tick before it."""
+        return len(self.ticks) - 1
+
+    def gap_since(self, mark: int) -> float:
+        t = np.array(self.ticks[mark:])
+        return float(np.diff(t).max()) if t.size > 1 else math.inf
+
 
 def close_dialogs(window) -> None:
     for d in list(window._dialogs):
@@ -132,6 +140,7 @@ def test_anatomy_flags_update_every_view(win, qtbot):
     qtbot.waitUntil(lambda: page._drawn_for is win.review.anatomy and
                     "height_cm" in page.statements.text(), timeout=5000)
     page.redraw()
+    assert win.wait_until_prepared(page, 60)  # the figures are made and drawn in workers
     assert win.review.settings.flags == {"height_cm": "protected", "smoker": "forbidden"}
     statement = win.review.anatomy.flags["height_cm"].statement()
     assert statement in page.statements.text()
@@ -179,6 +188,7 @@ def test_proximity_page_lists_neighbours_by_shared_leaves(win):
     win.go("proximity")
     page.row.setValue(7)
     page.k.setValue(5)
+    assert win.wait_until_prepared(page, 60)  # the neighbours are looked up in a worker
     paths = sample_paths()
     model = sio.load(paths["forest"], trusted=sio.get_untrusted_types(file=paths["forest"]))
     import pandas as pd
@@ -201,6 +211,7 @@ def test_proximity_page_lists_neighbours_by_shared_leaves(win):
 def test_surrogate_page_shows_the_tree_fidelity_and_cautions(win):
     page = win.pages["surrogate"]
     win.go("surrogate")
+    assert win.wait_until_prepared(page, 60)  # the tree figures are drawn in workers
     res = win.review.surrogate
     est = res.surrogate
     assert page.result_card.isVisible() and page.caution.isVisible()
@@ -311,6 +322,7 @@ def test_save_and_reopen_gives_the_same_review(win, tmp_path, qapp):
     other = MainWindow()
     other.confirm_close = False
     assert other.handle_dropped([str(tmp_path / "saved")]) == "review"
+    assert wait_for_idle(other, 60)  # the review is read in a worker
     r1, r2 = win.review, other.review
     for field in ("proba", "ensemble", "surrogate", "surrogate_leaf", "greedy", "disagreements"):
         assert np.array_equal(getattr(r1.cases, field), getattr(r2.cases, field))
@@ -491,3 +503,37 @@ def test_has_display_reads_the_environment(monkeypatch):
     assert has_display() is False
     monkeypatch.setenv("WAYLAND_DISPLAY", "wayland-0")
     assert has_display() is True
+
+
+def test_rows_are_numbered_alike_in_the_report_the_window_and_messages(win, tmp_path):
+    """One data row has one number: the report's disagreement table, the window's Cases
+    table and a data-file message all count from 1 in the file's order."""
+    import pandas as pd
+
+    from grovewise.errors import DataError
+    from grovewise.loaders import load_data
+    from grovewise.report.content import review_document
+    from grovewise.report.document import Table
+
+    review, c = win.review, win.review.cases
+    if not c.disagreements.size:
+        pytest.skip("the surrogate agrees on every row")
+    doc = review_document(review)
+    table = next(b for b in doc.blocks if isinstance(b, Table) and b.header[0] == "row"
+                 and "features on its path" in b.header)
+    first = int(table.rows[0][0])  # the report's number of the most confident disagreement
+    i = first - 1  # its index in the data
+    assert i in set(c.disagreements.tolist())
+    page = win.pages["cases"]
+    win.go("cases")
+    assert page.select_row(i)
+    assert f"Row {first} " in page.detail.text()
+    shown = page.proxy.mapFromSource(page.model.index(i, 0)).row()
+    assert page.proxy.cell_text(shown, 0) == str(first)
+    frame = pd.read_csv(sample_paths()["data"])
+    frame["age_years"] = frame["age_years"].astype(object)
+    frame.loc[i, "age_years"] = "unknown"
+    bad = tmp_path / "bad.csv"
+    frame.to_csv(bad, index=False)
+    with pytest.raises(DataError, match=f"data row {first}\\b"):
+        load_data(bad, forest=review.forest)

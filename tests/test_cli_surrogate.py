@@ -16,7 +16,7 @@ def test_surrogate_command_exports_rules_json_tree_and_program(tmp_path, capfd):
     assert code == 0
     printed = capfd.readouterr().out
     assert "Running HiGHS" not in printed  # the solver's banner stays out of our output
-    assert "fidelity: surrogate" in printed and "certificate:" in printed
+    assert "fidelity (unweighted): surrogate" in printed and "certificate:" in printed
     for name in ("rules.txt", "surrogate.json", "tree.png", "tree.svg", "program.mps"):
         assert (out / name).stat().st_size > 0, name
     doc = json.loads((out / "surrogate.json").read_text())

@@ -116,10 +116,11 @@ class TerminalProgress:
     def _watch(self) -> None:
         import time
 
-        while not self._stop.wait(0.25):
+        while not self._stop.wait(0.1):
             with self._lock:
                 now = time.monotonic()
-                if self._state is None or now - self._last < self.every - 0.3:
+                # well before `every`: a busy interpreter may hand this thread the lock late
+                if self._state is None or now - self._last < self.every * 0.7:
                     continue
                 step, fraction, message = self._state
                 if fraction >= 1.0:
@@ -170,11 +171,11 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     fid = sur.fidelity
     print(f"review of {inputs.model} on {inputs.data}: done in {time.perf_counter() - start:.1f} s")
     print(f"  exactness     {review.intake.exactness.text()}")
-    print(f"  surrogate     fidelity {fid['surrogate']['train']:.3f} train, "
-          f"{_fmt_optional(fid['surrogate']['holdout'])} holdout (unweighted; winning "
+    print(f"  surrogate     fidelity {_pct(fid['surrogate']['train'])} train, "
+          f"{_pct(fid['surrogate']['holdout'])} holdout (unweighted; winning "
           f"stage {sur.winner})")
-    print(f"  greedy tree   fidelity {fid['greedy']['train']:.3f} train, "
-          f"{_fmt_optional(fid['greedy']['holdout'])} holdout (unweighted)")
+    print(f"  greedy tree   fidelity {_pct(fid['greedy']['train'])} train, "
+          f"{_pct(fid['greedy']['holdout'])} holdout (unweighted)")
     print(f"  certificate   {certificate_line(review)}")
     print(f"  relies on     {reliance(review.anatomy.importance).headline()}")
     for spot in weak_spots(review):
@@ -190,6 +191,13 @@ def _jobs(args) -> int:
     from .executor import resolve_jobs
 
     return resolve_jobs(args.jobs)
+
+
+def _pct(v) -> str:
+    """A share as the report prints it (one decimal of a percent)."""
+    from .report.content import pct
+
+    return pct(v)
 
 
 def _fmt_optional(v) -> str:
@@ -319,9 +327,9 @@ def cmd_surrogate(args) -> int:
                 out / "tree", formats=("png", "svg"), dpi=args.dpi)
     fid = result.fidelity
     print(est.rules_)
-    print(f"fidelity: surrogate {fid['surrogate']['train']:.3f} train, "
-          f"{_fmt_optional(fid['surrogate']['holdout'])} holdout; greedy "
-          f"{fid['greedy']['train']:.3f} train, {_fmt_optional(fid['greedy']['holdout'])} holdout")
+    print(f"fidelity (unweighted): surrogate {_pct(fid['surrogate']['train'])} train, "
+          f"{_pct(fid['surrogate']['holdout'])} holdout; greedy "
+          f"{_pct(fid['greedy']['train'])} train, {_pct(fid['greedy']['holdout'])} holdout")
     cert = result.certificate
     print(f"certificate: {cert['status']}, objective {cert['objective']:.5f}, bound "
           f"{_fmt_optional(cert['bound'])}, gap {_fmt_optional(cert['gap'])}; winning stage "

@@ -3,8 +3,8 @@
 A capture is the page's header stacked over its whole body (scrolled-away parts included),
 rendered at a device-pixel ratio of 2. Where the screen already has that ratio the widgets
 paint natively; elsewhere (an ordinary screen, offscreen) they paint into a pixmap of twice
-the size, and each embedded matplotlib canvas is redrawn at that ratio first so charts stay
-sharp rather than being scaled up.
+the size, and each figure (:class:`~.widgets.FigureView`) is drawn at that ratio first so
+charts stay sharp rather than being scaled up.
 """
 
 from __future__ import annotations
@@ -13,10 +13,11 @@ import re
 from contextlib import contextmanager
 from pathlib import Path
 
-from matplotlib.backends.backend_qtagg import FigureCanvasQTAgg
 from PySide6.QtCore import QPoint
 from PySide6.QtGui import QColor, QPainter, QPixmap
 from PySide6.QtWidgets import QApplication, QWidget
+
+from .widgets import FigureView
 
 CAPTURE_RATIO = 2.0
 MAX_HEIGHT = 6000  # logical pixels; a longer body is cut (its tables scroll anyway)
@@ -29,18 +30,17 @@ def capture_name(index: int, key: str) -> str:
 
 @contextmanager
 def _canvases_at(widgets: list[QWidget], ratio: float):
-    """Redraw every matplotlib canvas under ``widgets`` at ``ratio``, then restore."""
-    canvases = [c for w in widgets for c in w.findChildren(FigureCanvasQTAgg)]
-    before = [c.device_pixel_ratio for c in canvases]
-    for c in canvases:
-        if c.device_pixel_ratio != ratio and c._set_device_pixel_ratio(ratio):
-            c.draw()
+    """Draw every figure under ``widgets`` at ``ratio`` (here, in this thread), then let each
+    draw for the screen again (in its worker)."""
+    views = [v for w in widgets for v in w.findChildren(FigureView)
+             if v.figure is not None and v.isVisible() and v.devicePixelRatioF() != ratio]
+    for v in views:
+        v.draw_now(ratio)
     try:
         yield
     finally:
-        for c, r in zip(canvases, before):
-            if c._set_device_pixel_ratio(r):
-                c.draw_idle()
+        for v in views:
+            v.redraw_later()
 
 
 def render_stack(widgets: list[QWidget], ratio: float = CAPTURE_RATIO) -> QPixmap:

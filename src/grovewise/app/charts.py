@@ -43,15 +43,12 @@ class SolveChart:
 
     The objective is the program's: weighted disagreement with the ensemble plus alpha times
     the sparsity cost.
+
+    The chart holds the points; :meth:`figure` draws them on a new Figure, so the window can
+    make and draw a picture of a :meth:`snapshot` in a worker while points keep arriving.
     """
 
     def __init__(self, time_limit: float = 60.0) -> None:
-        # fixed margins, no layout engine: redrawn several times a second while solving, it
-        # must stay cheap for the GUI thread
-        self.fig = Figure(figsize=(7.5, 2.6), facecolor="white")
-        FigureCanvasAgg(self.fig)
-        self.fig.subplots_adjust(left=0.085, right=0.985, top=0.95, bottom=0.2)
-        self.ax = self.fig.add_subplot(1, 1, 1)
         self.reset(time_limit)
 
     def reset(self, time_limit: float) -> None:
@@ -62,23 +59,6 @@ class SolveChart:
         self.bt: list[float] = []
         self.bound: list[float] = []
         self.returned: float | None = None
-        ax = self.ax
-        ax.clear()
-        _quiet(ax)
-        (self.cand_dots,) = ax.plot([], [], linestyle="none", marker="o", markersize=5,
-                                    color=theme.INK, label="candidate tree (all training rows)")
-        (self.inc_line,) = ax.plot([], [], color=INCUMBENT, linewidth=2.0, drawstyle="steps-post",
-                                   label="MILP incumbent (program's sample)")
-        (self.bound_line,) = ax.plot([], [], color=BOUND, linewidth=1.4, linestyle=(0, (4, 2)),
-                                     drawstyle="steps-post", label="MILP bound (proven floor)")
-        self.returned_line = ax.axhline(np.nan, color=theme.ACCENT, linewidth=1.0,
-                                        linestyle=":", label="tree returned")
-        ax.set_xlabel("seconds since the solve started", fontsize=8.5, color=theme.INK)
-        ax.set_ylabel("objective", fontsize=8.5, color=theme.INK)
-        ax.set_xlim(0, max(self.time_limit, 1.0))
-        ax.set_ylim(0, 0.2)
-        ax.legend(loc="upper right", fontsize=7.5, frameon=False)
-        self._labels = []
 
     def add(self, point) -> None:
         if point.stage == "program":
@@ -95,16 +75,33 @@ class SolveChart:
         """Mark the objective of the tree the step returned."""
         self.returned = objective
 
-    def redraw(self) -> None:
-        ax = self.ax
+    def snapshot(self) -> "SolveChart":
+        """A copy of the points so far (to draw while more arrive)."""
+        copy = SolveChart(self.time_limit)
+        copy.candidates, copy.pt, copy.inc = list(self.candidates), list(self.pt), list(self.inc)
+        copy.bt, copy.bound, copy.returned = list(self.bt), list(self.bound), self.returned
+        return copy
+
+    def figure(self) -> Figure:
+        """The chart as a new Figure (fixed margins, no layout engine: it is drawn again
+        several times a second while solving)."""
+        fig = Figure(figsize=(7.5, 2.6), facecolor="white")
+        FigureCanvasAgg(fig)
+        fig.subplots_adjust(left=0.085, right=0.985, top=0.95, bottom=0.2)
+        ax = fig.add_subplot(1, 1, 1)
+        _quiet(ax)
         c = sorted(self.candidates)
-        self.cand_dots.set_data([t for t, _, _ in c], [v for _, v, _ in c])
-        self.inc_line.set_data(self.pt, self.inc)
-        self.bound_line.set_data(self.bt, self.bound)
-        self.returned_line.set_ydata([np.nan if self.returned is None else self.returned] * 2)
-        for lab in self._labels:
-            lab.remove()
-        self._labels = []
+        ax.plot([t for t, _, _ in c], [v for _, v, _ in c], linestyle="none", marker="o",
+                markersize=5, color=theme.INK, label="candidate tree (all training rows)")
+        ax.plot(self.pt, self.inc, color=INCUMBENT, linewidth=2.0, drawstyle="steps-post",
+                label="MILP incumbent (program's sample)")
+        ax.plot(self.bt, self.bound, color=BOUND, linewidth=1.4, linestyle=(0, (4, 2)),
+                drawstyle="steps-post", label="MILP bound (proven floor)")
+        ax.axhline(np.nan if self.returned is None else self.returned, color=theme.ACCENT,
+                   linewidth=1.0, linestyle=":", label="tree returned")
+        ax.set_xlabel("seconds since the solve started", fontsize=8.5, color=theme.INK)
+        ax.set_ylabel("objective", fontsize=8.5, color=theme.INK)
+        ax.legend(loc="upper right", fontsize=7.5, frameon=False)
         values = [v for _, v, _ in c] + self.inc + self.bound
         if self.returned is not None:
             values.append(self.returned)
@@ -114,11 +111,10 @@ class SolveChart:
         ax.set_xlim(0, right)
         for t, v, stage in c:  # labels near the right edge go to the dot's left
             late = t > 0.8 * right
-            self._labels.append(ax.annotate(stage_words(stage), (t, v),
-                                            xytext=(-4 if late else 4, 4),
-                                            ha="right" if late else "left",
-                                            textcoords="offset points", fontsize=7.5,
-                                            color=theme.MUTED))
+            ax.annotate(stage_words(stage), (t, v), xytext=(-4 if late else 4, 4),
+                        ha="right" if late else "left", textcoords="offset points",
+                        fontsize=7.5, color=theme.MUTED)
+        return fig
 
 
 def pairs_figure(counts, threshold: float, n_at_threshold: int) -> Figure:

@@ -12,14 +12,14 @@ import dataclasses
 import time
 from pathlib import Path
 
-from PySide6.QtCore import QSettings, QTimer, Signal
+from PySide6.QtCore import QEventLoop, QSettings, QTimer, Signal, Slot
 from PySide6.QtWidgets import (QApplication, QFileDialog, QHBoxLayout, QLabel, QMainWindow,
                                QMessageBox, QProgressBar, QPushButton, QStackedWidget, QWidget)
 
 from ..errors import GrovewiseError, UnsafeModelError
 from ..loaders.model_files import SUFFIXES as MODEL_SUFFIXES
 from ..review import REQUIRES, REVIEW_FILE, STEPS, Review, ReviewInputs, ReviewSettings
-from . import problems, recent, theme
+from . import problems, recent, report_bridge, theme
 from .capture import capture_name, capture_page
 from .icon import app_icon
 from .menus import build_menus
@@ -31,7 +31,7 @@ from .pages.proximity import ProximityPage
 from .pages.signoff import SignoffPage
 from .pages.surrogate import SurrogatePage
 from .rail import StepRail
-from .workers import TaskRunner
+from .workers import LatestCall, TaskRunner, favour_gui_thread, settle_collector
 
 PAGE_ORDER = ("intake", "anatomy", "proximity", "surrogate", "cases", "signoff")
 # The settings each step's result depends on: changing one marks the result "stale".
@@ -94,6 +94,7 @@ class MainWindow(QMainWindow):
         self.runner.busy_changed.connect(self._on_busy)
         self._job_started = 0.0
         self._running_step = ""
+        self._opening: Path | None = None  # the saved review being read
         self._build_pages()
         self._build_status()
         self._build_menus()
@@ -107,6 +108,9 @@ class MainWindow(QMainWindow):
             self.set_review(review)
         else:
             self.show_review()
+        report_bridge.available()  # imports the report's libraries now, not on a later click
+        favour_gui_thread()
+        settle_collector()
 
     # ------------------------------------------------------------------ layout
     def _build_pages(self) -> None:
@@ -285,23 +289,34 @@ class MainWindow(QMainWindow):
             self.open_review(folder)
 
     def open_review(self, folder) -> bool:
+        """Open the review saved in ``folder``. It is read in a worker (a large review's arrays
+        take seconds to check and read) and shown when read; False if it could not start."""
         if not self._may_replace():
             return False
         folder = Path(folder)
         if folder.is_file():
             folder = folder.parent
-        try:
-            review = Review.open(folder)
-        except GrovewiseError as exc:
-            self.show_problem(exc, "opening the saved review")
-            return False
-        except Exception as exc:  # a damaged file of ours must not end the window
-            self.show_problem(exc, "opening the saved review")
-            return False
+        self._opening = folder
+
+        def connect(worker) -> None:
+            worker.succeeded.connect(self._review_read)
+            worker.failed.connect(self._review_not_read)
+        self.runner.run_call(Review.open, folder, kind="open", connect=connect)
+        self.say(f"Reading the review saved in {folder}…")
+        return True
+
+    @Slot(object)
+    def _review_read(self, review: Review) -> None:
+        folder = self._opening
         self.set_review(review, folder=folder)
+        settle_collector()  # the libraries the review needed, and the previous one's leftovers
         recent.add({"kind": "review", "path": str(folder)})
         self.say(f"Opened the review saved in {folder}.")
-        return True
+
+    @Slot(object)
+    def _review_not_read(self, exc: BaseException) -> None:
+        # a damaged file of ours must not end the window either: every fault is a dialog
+        self.show_problem(exc, "opening the saved review")
 
     def _fill_recent(self) -> None:
         self.recent_menu.clear()
@@ -560,6 +575,7 @@ class MainWindow(QMainWindow):
             else:
                 path = name
         try:
+            self.wait_until_prepared(self.pages[key])
             out = capture_page(self.pages[key], path)
         except Exception as exc:
             self.show_problem(exc, "saving the capture")
@@ -577,9 +593,22 @@ class MainWindow(QMainWindow):
             page = self.pages[key]
             page.prepare_capture()
             QApplication.processEvents()
+            self.wait_until_prepared(page)
             out.append(capture_page(page, folder / capture_name(i + 1, key)))
         self.go(here)
         return out
+
+    def wait_until_prepared(self, page, timeout_s: float = 300.0) -> bool:
+        """Let the event loop run until ``page`` has drawn what it shows (its figures and
+        look-ups run in workers), so a capture never shows "drawing…". False on timeout."""
+        deadline = time.monotonic() + timeout_s
+        while page.preparing():
+            if time.monotonic() > deadline:
+                return False
+            loop = QEventLoop()
+            QTimer.singleShot(20, loop.quit)
+            loop.exec()
+        return True
 
     def capture_all_ask(self) -> None:
         folder = QFileDialog.getExistingDirectory(self, "Save a capture of every page into")
@@ -618,6 +647,9 @@ class MainWindow(QMainWindow):
         if self.runner.busy:
             self.runner.cancel()
             self.runner.wait(15000)
+        for job in self.findChildren(LatestCall):  # what the pages were preparing
+            job.drop()
+            job.wait(15000)
         if self.confirm_close and self.dirty and self.review is not None:
             answer = QMessageBox.question(
                 self, "Save the review?", "The review has changes that are not saved. Save "

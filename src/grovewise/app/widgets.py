@@ -2,16 +2,27 @@
 
 from __future__ import annotations
 
+import sys
+import threading
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from types import SimpleNamespace
 
-from matplotlib.backends.backend_qtagg import FigureCanvasQTAgg
-from PySide6.QtCore import Qt
-from PySide6.QtGui import QCursor
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from PySide6.QtCore import QRectF, QSize, Qt, QTimer
+from PySide6.QtGui import QCursor, QImage, QPainter
 from PySide6.QtWidgets import (QFrame, QGridLayout, QHBoxLayout, QLabel, QSizePolicy, QToolTip,
                                QVBoxLayout, QWidget)
 
 from . import theme
 from .cautions import cautions
+
+MAX_DPI = 100.0  # a figure is never drawn finer than this (logical dots per inch)
+MIN_DPI = 55.0  # nor coarser (smaller text would not be readable)
+MAX_STRETCH = 1.3  # at most this much wider than designed: wider only spreads it thin
+MIN_WIDTH = 160  # a figure view is never narrower
+QWIDGETSIZE_MAX = (1 << 24) - 1
 
 
 class Card(QFrame):
@@ -123,7 +134,16 @@ class Verdict(QFrame):
 
 
 class FigureView(QWidget):
-    """A matplotlib Figure embedded with its Qt canvas; hovering shows ``hover(event)``'s text.
+    """A matplotlib Figure shown as a picture drawn off the GUI thread; hovering shows
+    ``hover(event)``'s text.
+
+    A figure with many artists takes a large share of a second to lay out and draw, so the
+    view never draws in the GUI thread: :meth:`show_built` makes the figure in a worker
+    (:class:`~.workers.LatestCall`) and draws it there; the view shows the pixels when they
+    arrive ("drawing…" until then, or the previous picture, marked "updating…" unless
+    ``mark_updates`` is off). A new width is drawn in the worker too. Hover events are
+    rebuilt from the drawn figure's transforms, so hover functions get ``inaxes``, ``xdata``
+    and ``ydata`` as from matplotlib.
 
     Figures are designed at a size in inches (the report's). Here a figure keeps those
     proportions: when the view is narrower than the design, it is drawn at a lower
@@ -131,89 +151,257 @@ class FigureView(QWidget):
     above :data:`MAX_DPI`. Its height is fixed, so a page scrolls on a small screen.
     """
 
-    MAX_DPI = 100.0
-    MIN_DPI = 55.0
-    MAX_STRETCH = 1.3  # at most this much wider than designed: wider only spreads it thin
-
-    def __init__(self, parent=None) -> None:
+    def __init__(self, parent=None, mark_updates: bool = True) -> None:
         super().__init__(parent)
+        from .workers import LatestCall
+
         self.lay = QVBoxLayout(self)
         self.lay.setContentsMargins(0, 0, 0, 0)
-        self.canvas: FigureCanvasQTAgg | None = None
-        self.hover: Callable | None = None
-        self.natural = (6.0, 3.0)
         self.placeholder = wrapped("", muted=True)
         self.lay.addWidget(self.placeholder)
         self.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Minimum)
+        self.setMouseTracking(True)
+        self.hover: Callable | None = None
+        self.natural = (6.0, 3.0)
+        self.mark_updates = mark_updates  # "updating…" over a picture about to be replaced
+        self.lock = threading.Lock()  # held while the figure is drawn
+        self.jobs = LatestCall(self)
+        self._figure = None
+        self._building = False
+        self._image: QImage | None = None
+        self._drawn: tuple | None = None  # (figure, width, ratio) the picture shows
+        self._timer = QTimer(self)  # gathers the resizes of one layout pass into one drawing
+        self._timer.setSingleShot(True)
+        self._timer.setInterval(40)
+        self._timer.timeout.connect(self._draw)
 
     @property
     def figure(self):
-        return None if self.canvas is None else self.canvas.figure
+        return self._figure
 
+    @property
+    def pending(self) -> bool:
+        """Whether the figure asked for is not on screen yet."""
+        return (self._building or self.jobs.busy or self._timer.isActive()
+                or (self._figure is not None and (self._drawn is None
+                                                  or self._drawn[0] is not self._figure)))
+
+    # ------------------------------------------------------------------ what to show
     def set_message(self, text: str) -> None:
         self.clear()
         self.placeholder.setText(text)
         self.placeholder.show()
 
     def clear(self) -> None:
-        if self.canvas is not None:
-            self.lay.removeWidget(self.canvas)
-            self.canvas.setParent(None)
-            self.canvas.deleteLater()
-            self.canvas = None
+        self.jobs.drop()
+        self._timer.stop()
+        self._figure, self.hover, self._building = None, None, False
+        self._image, self._drawn = None, None
+        self.setMinimumHeight(0)
+        self.setMaximumHeight(QWIDGETSIZE_MAX)
+        self.update()
 
-    def set_figure(self, fig, hover: Callable | None = None) -> None:
-        self.clear()
+    def show_built(self, build: Callable, hover: Callable | None = None) -> None:
+        """Make the figure with ``build()`` in a worker, draw it there and show it;
+        ``hover(figure)``, also called there, gives the figure's hover function."""
+        self._building = True
+        if self._image is None:
+            self.placeholder.setText("Drawing the figure…")
+            self.placeholder.show()
+        spec = self._spec()
+        self.jobs.request(_build_and_draw, build, hover, spec, self.lock, done=self._built,
+                          failed=self._not_built)
+        self.update()
+
+    def _built(self, result) -> None:
+        fig, natural, hover, drawn = result
+        self._building = False
+        self._figure, self.natural, self.hover = fig, natural, hover
         self.placeholder.hide()
-        self.natural = tuple(float(v) for v in fig.get_size_inches())
-        canvas = FigureCanvasQTAgg(fig)
-        canvas.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Fixed)
-        canvas.setMinimumWidth(160)
-        self.hover = hover
-        canvas.mpl_connect("motion_notify_event", self._on_motion)
-        self.lay.addWidget(canvas)
-        self.canvas = canvas
-        self._fit()
+        self._fit_height()
+        if drawn is not None and drawn.key() == (fig, *(self._spec() or (0, 0.0))):
+            self._show(drawn)
+        else:
+            self._schedule()
+
+    def _not_built(self, exc) -> None:
+        self._building = False
+        self.set_message("This figure could not be drawn.")
+        sys.excepthook(type(exc), exc, exc.__traceback__)  # the window logs it and says so
+
+    # ------------------------------------------------------------------ drawing
+    def _spec(self) -> tuple[int, float] | None:
+        """(width, pixel ratio) to draw for, or None while the view is not laid out."""
+        if not self.isVisible() or self.width() < 16:
+            return None
+        return int(self.width()), float(self.devicePixelRatioF())
 
     def fit_dpi(self) -> float:
-        width = max(self.width(), 1)
-        return max(self.MIN_DPI, min(self.MAX_DPI, width / self.natural[0]))
+        return figure_dpi(max(self.width(), 1), self.natural[0])
 
-    def _fit(self) -> None:
-        """Resolution and height for the current width (see the class docstring)."""
-        canvas = self.canvas
-        if canvas is None:
+    def _fit_height(self) -> None:
+        if self._figure is not None:
+            self.setFixedHeight(int(round(self.natural[1] * self.fit_dpi())))
+
+    def _schedule(self) -> None:
+        if self._figure is not None and not self._building and self._spec() is not None:
+            self._timer.start()
+        self.update()
+
+    def _draw(self) -> None:
+        spec = self._spec()
+        if self._figure is None or spec is None or self._building:
             return
-        dpi = self.fit_dpi()
-        fig = canvas.figure
-        if abs(getattr(fig, "_original_dpi", dpi) - dpi) > 0.5 or canvas.height() <= 1:
-            # matplotlib derives the drawing resolution from this base value times the
-            # screen's pixel ratio (also when a capture redraws at ratio 2)
-            fig._original_dpi = dpi
-            fig.set_dpi(dpi * canvas.device_pixel_ratio)
-            if canvas.width() > 1:
-                fig.set_size_inches(canvas.width() / dpi, self.natural[1], forward=False)
-        canvas.setFixedHeight(int(round(self.natural[1] * dpi)))
-        canvas.setMaximumWidth(int(self.natural[0] * dpi * self.MAX_STRETCH))
-        canvas.draw_idle()
+        if self._drawn == (self._figure, *spec) and not self.jobs.busy:
+            return
+        self.jobs.request(draw_figure, self._figure, self.natural, *spec, self.lock,
+                          done=self._drawn_now)
+
+    def _drawn_now(self, drawn: "DrawnFigure") -> None:
+        if drawn.figure is self._figure:
+            self._show(drawn)
+            if drawn.key() != (self._figure, *(self._spec() or (0, 0.0))):
+                self._schedule()  # resized meanwhile
+
+    def _show(self, drawn: "DrawnFigure") -> None:
+        h, w = drawn.pixels.shape[:2]
+        img = QImage(drawn.pixels.data, w, h, 4 * w, QImage.Format.Format_RGBA8888).copy()
+        img.setDevicePixelRatio(drawn.ratio)
+        self._image, self._drawn = img, drawn.key()
+        self.placeholder.hide()
+        self.update()
+
+    def draw_now(self, ratio: float) -> None:
+        """Draw the figure at ``ratio`` in this thread (a capture: sharp at ratio 2)."""
+        if self._figure is None or self._building:
+            return
+        self._show(draw_figure(self._figure, self.natural, max(self.width(), 1), ratio,
+                               self.lock))
+
+    def redraw_later(self) -> None:
+        """Draw again for the screen (after a capture drew at another ratio)."""
+        self._drawn = None
+        self._schedule()
+
+    # ------------------------------------------------------------------ Qt
+    def sizeHint(self) -> QSize:
+        if self._figure is None:
+            return super().sizeHint()
+        dpi = self.fit_dpi()  # the figure's design size at the resolution it is drawn at
+        return QSize(int(self.natural[0] * dpi), int(round(self.natural[1] * dpi)))
+
+    def minimumSizeHint(self) -> QSize:
+        if self._figure is None:
+            return super().minimumSizeHint()
+        return QSize(MIN_WIDTH, int(round(self.natural[1] * self.fit_dpi())))
+
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        self._schedule()
 
     def resizeEvent(self, event) -> None:
         super().resizeEvent(event)
         if event.oldSize().width() != event.size().width():
-            self._fit()
+            self._fit_height()
+            self._schedule()
 
-    def _on_motion(self, event) -> None:
-        if self.hover is None or event.inaxes is None:
-            QToolTip.hideText()
+    def paintEvent(self, event) -> None:
+        if self._image is None:
             return
-        try:
-            text = self.hover(event)
-        except (IndexError, KeyError, ValueError, TypeError):
-            text = None
+        painter = QPainter(self)
+        img = self._image
+        ratio = img.devicePixelRatio()
+        w, h = img.width() / ratio, img.height() / ratio
+        if self._drawn is not None and self._drawn[1] != self.width():  # resized: a stopgap
+            scale = min(self.width() / max(w, 1.0), self.height() / max(h, 1.0))
+            w, h = w * scale, h * scale
+            painter.setRenderHint(QPainter.RenderHint.SmoothPixmapTransform)
+        painter.drawImage(QRectF(0, 0, w, h), img)
+        if self.pending and self.mark_updates:
+            painter.setPen(theme.qcolor(theme.MUTED))
+            painter.drawText(QRectF(0, 2, self.width() - 6, 18),
+                             int(Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignTop),
+                             "updating…")
+        painter.end()
+
+    def mouseMoveEvent(self, event) -> None:
+        super().mouseMoveEvent(event)
+        text = None
+        if self.hover is not None and not self.pending and self._image is not None:
+            ev = self.event_at(event.position().x(), event.position().y())
+            if ev is not None:
+                try:
+                    text = self.hover(ev)
+                except (IndexError, KeyError, ValueError, TypeError):
+                    text = None
         if text:
-            QToolTip.showText(QCursor.pos(), text, self.canvas)
+            QToolTip.showText(QCursor.pos(), text, self)
         else:
             QToolTip.hideText()
+
+    def event_at(self, x: float, y: float):
+        """The matplotlib-like event at view position (x, y): ``inaxes``, ``xdata``,
+        ``ydata`` (None when the point is on no axes)."""
+        fig, img = self._figure, self._image
+        ratio = img.devicePixelRatio()
+        px, py = x * ratio, img.height() - y * ratio  # matplotlib counts from the bottom
+        if not (0 <= px < img.width() and 0 <= py < img.height()):
+            return None
+        if not self.lock.acquire(blocking=False):  # being drawn: no hover text meanwhile
+            return None
+        try:
+            hits = [a for a in fig.axes if a.get_visible() and a.patch.contains_point((px, py))]
+            if not hits:
+                return None
+            ax = max(reversed(hits), key=lambda a: a.get_zorder())  # the one drawn on top
+            xdata, ydata = ax.transData.inverted().transform((px, py))
+        finally:
+            self.lock.release()
+        return SimpleNamespace(inaxes=ax, xdata=float(xdata), ydata=float(ydata), x=px, y=py)
+
+
+@dataclass
+class DrawnFigure:
+    """A figure's pixels (RGBA rows, top first) for a view ``width`` pixels wide at ``ratio``."""
+
+    figure: object
+    pixels: np.ndarray
+    width: int
+    ratio: float
+
+    def key(self) -> tuple:
+        return self.figure, self.width, self.ratio
+
+
+def figure_dpi(width: float, natural_width: float) -> float:
+    """Dots per inch for a figure designed ``natural_width`` inches wide in ``width`` pixels."""
+    return max(MIN_DPI, min(MAX_DPI, width / max(natural_width, 1e-6)))
+
+
+def draw_figure(fig, natural: tuple[float, float], width: int, ratio: float,
+                lock: threading.Lock) -> DrawnFigure:
+    """Lay out and draw ``fig`` with Agg for a view ``width`` pixels wide (no Qt: this runs
+    in a worker thread). The figure is at most :data:`MAX_STRETCH` times its design width and
+    keeps its design height in inches."""
+    dpi = figure_dpi(width, natural[0])
+    w = min(float(width), natural[0] * dpi * MAX_STRETCH)
+    with lock:
+        canvas = fig.canvas if type(fig.canvas) is FigureCanvasAgg else FigureCanvasAgg(fig)
+        fig.set_dpi(dpi * ratio)
+        fig.set_size_inches(w / dpi, natural[1], forward=False)
+        canvas.draw()
+        pixels = np.asarray(canvas.buffer_rgba()).copy()
+    return DrawnFigure(fig, pixels, int(width), float(ratio))
+
+
+def _build_and_draw(build: Callable, hover: Callable | None, spec, lock: threading.Lock):
+    """A worker's job: the figure, its design size (before drawing changes it), its hover
+    function and, when the view's width is known, its pixels."""
+    fig = build()
+    natural = tuple(float(v) for v in fig.get_size_inches())
+    how = hover(fig) if hover is not None else None
+    drawn = draw_figure(fig, natural, *spec, lock) if spec is not None else None
+    return fig, natural, how, drawn
 
 
 def hline() -> QFrame:

@@ -3,7 +3,8 @@
 A :class:`StepWorker` calls ``review.run_step`` for each step in turn, relaying the core's
 progress callback as Qt signals (queued into the GUI thread). Cancel sets the
 ``threading.Event`` the core polls; the surrogate step then returns its best incumbent.
-:class:`TaskRunner` owns the thread and allows one job at a time.
+:class:`TaskRunner` owns the thread and allows one job at a time. What the pages show (figures,
+look-ups over every row) is prepared in :class:`LatestCall` jobs, each on a runner of its own.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ import sys
 import threading
 import time
 from collections.abc import Callable
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass
 
 from PySide6.QtCore import QObject, QThread, Signal, Slot
@@ -99,6 +100,34 @@ def collector_paused(pause: bool):
         yield
     finally:
         gc.enable()
+
+
+# Python hands its interpreter lock to a waiting thread after this long (its default: 5 ms).
+# The GUI thread waits for the lock at every call from Qt into Python (a timer, a paint, a
+# model's data); with figures made and drawn in workers, turns of 5 ms add up to stalls of a
+# tenth of a second and more, turns of 1 ms keep the waits short.
+GUI_SWITCH_INTERVAL_S = 0.001
+
+
+def favour_gui_thread() -> None:
+    """Shorten the interpreter's thread turns to :data:`GUI_SWITCH_INTERVAL_S` (process-wide;
+    never lengthens them)."""
+    sys.setswitchinterval(min(sys.getswitchinterval(), GUI_SWITCH_INTERVAL_S))
+
+
+def settle_collector() -> None:
+    """Collect garbage once, then exempt every object alive from later collections
+    (``gc.freeze``): the modules, the window's own widgets and what is loaded at start.
+
+    A full pass of the cyclic collector holds the interpreter lock over every tracked object,
+    from whichever thread sets it off; over the half-million objects of the imported
+    libraries that is a third of a second or more, a stall of the window each time. After
+    this, a full pass walks only what was made since (figures, results). Called when the
+    window is built, before its event loop turns, and when a saved review has been read (its
+    libraries imported, the previous review's figures let go).
+    """
+    gc.collect()
+    gc.freeze()
 
 
 def _num(value) -> float | None:
@@ -274,3 +303,101 @@ class TaskRunner(QObject):
         self._thread, self._worker = None, None
         self.busy_changed.emit(False)
         self.job_finished.emit(kind, outcome)
+
+
+# ---------------------------------------------------------------------------- display jobs
+# What a page shows is prepared off the GUI thread too: figures to draw, rows to look up,
+# a search over a long table. Figures, made and drawn in Python, take turns in one slot: on
+# two cores, several Python-heavy threads at once would each take the interpreter lock from
+# the GUI thread in turn. Long look-ups (seconds) run beside them rather than hold them up.
+DISPLAY_SLOT = threading.Lock()
+
+
+class _Overtaken(Exception):
+    """A display request that a newer one replaced before it started."""
+
+
+class LatestCall(QObject):
+    """One display job of a page or a view, in a worker thread (:meth:`TaskRunner.run_call`).
+
+    ``request(fn, *args, done=..., **kwargs)`` runs ``fn`` in the worker and hands its result
+    to ``done`` in the GUI thread. One call runs at a time; a request made meanwhile waits,
+    replacing any request already waiting, and only the newest request's result is handed
+    on: a reviewer who clicks through ten rows sees the tenth, not ten redraws. With
+    ``exclusive``, calls take turns with the other exclusive ones in :data:`DISPLAY_SLOT`.
+    """
+
+    def __init__(self, parent=None, exclusive: bool = True) -> None:
+        super().__init__(parent)
+        self.exclusive = exclusive
+        self.runner = TaskRunner(self)
+        self.runner.job_finished.connect(self._start_next)
+        self._serial = 0
+        self._waiting: tuple | None = None
+        self._running: tuple | None = None  # (serial, done, failed) of the call under way
+
+    @property
+    def busy(self) -> bool:
+        """Whether a request is running or waiting."""
+        return self.runner.busy or self._waiting is not None
+
+    def request(self, fn: Callable, *args, done: Callable | None = None,
+                failed: Callable | None = None, stale_check: bool = False, **kwargs) -> int:
+        """Run ``fn(*args, **kwargs)`` in the worker; ``done(result)`` or ``failed(exc)``
+        follow in the GUI thread unless a newer request came first. With ``stale_check``,
+        ``fn`` also gets ``stale``, a callable saying whether a newer request has come (a long
+        call checks it now and then and gives up). Returns the request's number."""
+        self._serial += 1
+        self._waiting = (self._serial, fn, args, kwargs, done, failed, stale_check)
+        self._start_next()
+        return self._serial
+
+    def drop(self) -> None:
+        """Forget every request: a call under way finishes, but its result is not handed on."""
+        self._serial += 1
+        self._waiting = None
+
+    def wait(self, timeout_ms: int = 30000) -> bool:
+        return self.runner.wait(timeout_ms)
+
+    def _stale(self, serial: int) -> bool:
+        return serial != self._serial
+
+    def _start_next(self, *_ignored) -> None:
+        if not self.runner.busy:  # let go of the last call's arguments (a figure, a review)
+            self.runner.last_worker, self._running = None, None
+        if self._waiting is None or self.runner.busy:
+            return
+        serial, fn, args, kwargs, done, failed, stale_check = self._waiting
+        self._waiting = None
+        if stale_check:
+            kwargs = {**kwargs, "stale": lambda: self._stale(serial)}
+
+        def call():
+            with DISPLAY_SLOT if self.exclusive else nullcontext():
+                if self._stale(serial):
+                    raise _Overtaken()
+                return fn(*args, **kwargs)
+
+        self._running = (serial, done, failed)
+
+        def connect(worker) -> None:
+            worker.succeeded.connect(self._succeeded)  # queued into the GUI thread
+            worker.failed.connect(self._failed)
+        self.runner.run_call(call, kind="display", connect=connect)
+
+    @Slot(object)
+    def _succeeded(self, result) -> None:
+        serial, done, _failed = self._running or (None, None, None)
+        if not self._stale(serial) and done is not None:
+            done(result)
+
+    @Slot(object)
+    def _failed(self, exc) -> None:
+        serial, _done, failed = self._running or (None, None, None)
+        if self._stale(serial) or isinstance(exc, _Overtaken):
+            return
+        if failed is not None:
+            failed(exc)
+        else:  # a fault of the window's own: the window's hook logs it and says so
+            sys.excepthook(type(exc), exc, exc.__traceback__)

@@ -31,7 +31,7 @@ DECISION_TEXT = {"pending": "not yet decided", "approve": "approved",
 MAX_CASE_ROWS = 12
 
 
-def _pct(v) -> str:
+def pct(v) -> str:
     return "n/a" if v is None else f"{100 * float(v):.1f}%"
 
 
@@ -90,7 +90,7 @@ def _fidelity_text(fid: dict, part: str, review, model: str = "surrogate") -> st
         return "n/a"
     rows = review.surrogate.train_rows if part == "train" else review.surrogate.holdout_rows
     ci = wilson_interval(int(round(v * rows.size)), int(rows.size))
-    return f"{_pct(v)} (95% interval {_pct(ci[0])} to {_pct(ci[1])})" if ci else _pct(v)
+    return f"{pct(v)} (95% interval {pct(ci[0])} to {pct(ci[1])})" if ci else pct(v)
 
 
 def _depth_text(review) -> str:
@@ -135,8 +135,8 @@ def _summary(doc: Document, review) -> None:
         ("Surrogate", f"{_depth_text(review)}, fidelity (unweighted) "
                       f"{_fidelity_text(fid, 'train', review)} train / "
                       f"{_fidelity_text(fid, 'holdout', review)} holdout"),
-        ("Greedy tree", f"same depth, fidelity (unweighted) {_pct(fid['greedy']['train'])} "
-                        f"train / {_pct(fid['greedy']['holdout'])} holdout"),
+        ("Greedy tree", f"same depth, fidelity (unweighted) {pct(fid['greedy']['train'])} "
+                        f"train / {pct(fid['greedy']['holdout'])} holdout"),
         ("Certificate", certificate_line(review)),
         ("Solver", f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),
         ("Decision", DECISION_TEXT.get(review.reviewer.decision, review.reviewer.decision)),
@@ -375,7 +375,7 @@ def _cases(doc: Document, review) -> None:
     classes = list(review.forest.classes_)
     doc.add(Heading("Cases where the surrogate and the ensemble disagree"))
     n = cases.ensemble.size
-    doc.add(Paragraph(f"The surrogate agrees with the ensemble on {_pct(cases.agreement)} of "
+    doc.add(Paragraph(f"The surrogate agrees with the ensemble on {pct(cases.agreement)} of "
                       f"{n} rows; it disagrees on {cases.disagreements.size}. The rows below are "
                       "the disagreements where the ensemble is most confident, with the values "
                       "of the features their path through the rules tests. " + ROW_NUMBERING))

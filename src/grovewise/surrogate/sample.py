@@ -101,13 +101,20 @@ def _all_rows(Xs, y, w, K, row_group) -> Sample:
     gid = union_find_groups(Xs.shape[0], np.array(links, dtype=np.int64).reshape(-1, 2))
     point_group = np.zeros(uniq.shape[0], dtype=np.int64)
     point_group[inv] = gid
-    rows = [np.flatnonzero(inv == u) for u in range(uniq.shape[0])]
+    rows = _members(inv, uniq.shape[0])
     G = int(gid.max()) + 1
     cw = np.zeros((G, K))
     np.add.at(cw, (gid, y), w)
     count = np.bincount(gid, minlength=G).astype(np.float64)
     return Sample(Xs=uniq, group=point_group, class_weight=cw / cw.sum(), count=count,
                   rows=rows, covers_all_rows=True, merged_groups=0)
+
+
+def _members(labels: np.ndarray, n_labels: int) -> list[np.ndarray]:
+    """The rows of each label 0 .. n_labels - 1, ascending (one sort, not a scan per label)."""
+    order = np.argsort(labels, kind="stable")
+    counts = np.bincount(labels, minlength=n_labels)
+    return np.split(order, np.cumsum(counts)[:-1])
 
 
 def _chain_by(key: np.ndarray) -> list[tuple[int, int]]:
@@ -121,7 +128,7 @@ def _chain_by(key: np.ndarray) -> list[tuple[int, int]]:
 
 def _stratified(Xs, y, w, K, row_group, size, rng) -> Sample:
     G = int(row_group.max()) + 1
-    members = [np.flatnonzero(row_group == g) for g in range(G)]
+    members = _members(row_group, G)
     # a unit per group: its medoid-like representative, weights per class, rows, class
     rep = np.empty(G, dtype=np.int64)
     cw = np.zeros((G, K))

@@ -1,9 +1,10 @@
 """Anatomy: how the ensemble uses each feature, with the reviewer's flags shown everywhere.
 
-The figures are the report's own (:mod:`grovewise.report.figures_anatomy`), embedded through
-matplotlib's Qt canvas, so the window and the report show the same pictures. Hovering a cell,
-box, strip or bar shows its numbers. Ticking a feature as protected or forbidden updates the
-flag statements and every figure.
+The figures are the report's own (:mod:`grovewise.report.figures_anatomy`), made and drawn in
+the views' workers, so the window and the report show the same pictures and a forest of
+hundreds of deep trees never holds up the window. Hovering a cell, box, strip or bar shows its
+numbers. Ticking a feature as protected or forbidden updates the flag statements and every
+figure.
 """
 
 from __future__ import annotations
@@ -165,6 +166,9 @@ class FlagGrid(QWidget):
         self.grid.setVerticalSpacing(2)
         self.on_change = on_change
         self.boxes: dict[tuple[str, str], QCheckBox] = {}
+        # one style sheet for every box (a sheet per box costs a style of its own per box)
+        self.setStyleSheet("".join(f'QCheckBox[flag="{kind}"] {{ color: {flag_style(kind)[1]}; }}'
+                                   for kind in ("protected", "forbidden")))
 
     def fill(self, names: list[str], flags: dict[str, str]) -> None:
         while self.grid.count():
@@ -178,9 +182,8 @@ class FlagGrid(QWidget):
             label.setToolTip(name)
             self.grid.addWidget(label, r, 3 * c)
             for k, kind in enumerate(("protected", "forbidden")):
-                glyph, colour = flag_style(kind)
-                box = QCheckBox(glyph)
-                box.setStyleSheet(f"QCheckBox {{ color: {colour}; }}")
+                box = QCheckBox(flag_style(kind)[0])
+                box.setProperty("flag", kind)
                 box.setChecked(flags.get(name) == kind)
                 box.setToolTip(f"Flag {name} as {kind}")
                 box.setAccessibleName(f"{name} {kind}")
@@ -268,6 +271,8 @@ class AnatomyPage(Page):
         self.comparison = None
         self._drawn_for = None
         self._filled_for = None
+        for view in self.views.values():
+            view.clear()
         self.views["comparison"].setVisible(False)
 
     def refresh(self) -> None:
@@ -314,23 +319,25 @@ class AnatomyPage(Page):
         return dict(self.review.settings.flags) if self.review is not None else {}
 
     def redraw(self) -> None:
+        """Draw every figure again (in the views' workers; each shows when it is ready)."""
         r = self.review
         if r is None or r.anatomy is None:
             return
         a, flags = r.anatomy, self.flags()
-        weight = self.weight.currentData() or "count"
-        usage = a.depth_usage[weight]
-        fig = figs.depth_usage_figure(usage, flags)
-        self.views["depth"].set_figure(fig, usage_hover(usage, flags, fig))
-        fig = figs.position_map_figure(a.position_usage, flags)
-        self.views["position"].set_figure(fig, position_hover(a.position_usage))
-        fig = figs.threshold_strips_figure(a.thresholds, flags=flags)
-        self.views["strips"].set_figure(fig, strips_hover(a.thresholds, flags))
-        fig = figs.importance_figure(a.importance, flags)
-        self.views["importance"].set_figure(fig, importance_hover(a.importance, flags, fig))
-        if self.comparison is not None:
-            fig = figs.comparison_figure(self.comparison, flags)
-            self.views["comparison"].set_figure(fig, comparison_hover(self.comparison, flags, fig))
+        usage = a.depth_usage[self.weight.currentData() or "count"]
+        views = self.views
+        views["depth"].show_built(lambda: figs.depth_usage_figure(usage, flags),
+                                  lambda fig: usage_hover(usage, flags, fig))
+        views["position"].show_built(lambda: figs.position_map_figure(a.position_usage, flags),
+                                     lambda fig: position_hover(a.position_usage))
+        views["strips"].show_built(lambda: figs.threshold_strips_figure(a.thresholds, flags=flags),
+                                   lambda fig: strips_hover(a.thresholds, flags))
+        views["importance"].show_built(lambda: figs.importance_figure(a.importance, flags),
+                                       lambda fig: importance_hover(a.importance, flags, fig))
+        cmp = self.comparison
+        if cmp is not None:
+            views["comparison"].show_built(lambda: figs.comparison_figure(cmp, flags),
+                                           lambda fig: comparison_hover(cmp, flags, fig))
         self.statements.setText("\n".join(f.statement() for f in a.flags.features)
                                 or "No feature is flagged.")
         self._drawn_for = a
@@ -377,10 +384,11 @@ class AnatomyPage(Page):
 
     def _compared(self, cmp) -> None:
         self.comparison = cmp
-        self.views["comparison"].setVisible(True)
+        view = self.views["comparison"]
+        view.setVisible(True)
         flags = self.flags()
-        fig = figs.comparison_figure(cmp, flags)
-        self.views["comparison"].set_figure(fig, comparison_hover(cmp, flags, fig))
+        view.show_built(lambda: figs.comparison_figure(cmp, flags),
+                        lambda fig: comparison_hover(cmp, flags, fig))
         self.window_.say(f"Compared with {cmp.labels[1]}: appeared {', '.join(cmp.appeared) or 'none'}; "
                          f"vanished {', '.join(cmp.vanished) or 'none'}.")
 

@@ -1,5 +1,9 @@
 """What every page has: a header (title, the question it answers, its buttons) over a
-scrolling body, a capture button, and ``show_review`` / ``refresh`` hooks the window calls."""
+scrolling body, a capture button, and ``show_review`` / ``refresh`` hooks the window calls.
+
+A page's refresh stays quick whatever the size of the review: what takes longer (figures,
+look-ups over every row) runs in the page's display jobs (:class:`~..workers.LatestCall`)
+and :meth:`Page.preparing` says whether any is still under way."""
 
 from __future__ import annotations
 
@@ -8,6 +12,8 @@ from PySide6.QtWidgets import (QFrame, QHBoxLayout, QLabel, QPushButton, QScroll
                                QVBoxLayout, QWidget)
 
 from .. import theme
+from ..widgets import FigureView
+from ..workers import LatestCall
 
 
 class Page(QWidget):
@@ -109,6 +115,13 @@ class Page(QWidget):
 
     def refresh(self) -> None:
         """Results changed: redraw what depends on them."""
+
+    def preparing(self) -> bool:
+        """Whether something the page shows is still being prepared in a worker (a figure in
+        a part of the page that is hidden waits to be drawn until it is shown)."""
+        return (any(job.busy for job in self.findChildren(LatestCall))
+                or any(view.pending for view in self.findChildren(FigureView)
+                       if view.isVisibleTo(self)))
 
     def capture_widgets(self) -> list[QWidget]:
         """The widgets a capture stacks top to bottom: the header and the whole body."""

@@ -7,67 +7,129 @@ from __future__ import annotations
 import html
 import math
 import re
+from dataclasses import dataclass
 
 import numpy as np
-from PySide6.QtCore import QAbstractTableModel, QModelIndex, QSortFilterProxyModel, Qt
+from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 from PySide6.QtGui import QKeySequence, QShortcut
-from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFrame, QHBoxLayout, QLabel,
-                               QLineEdit, QListWidget, QListWidgetItem, QScrollArea, QSplitter,
-                               QTableView)
+from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFrame, QHeaderView, QHBoxLayout,
+                               QLabel, QLineEdit, QListWidget, QListWidgetItem, QScrollArea,
+                               QSplitter, QStyleOptionViewItem, QTableView)
 
 from .. import theme
 from ..paths import surrogate_path
 from ..widgets import Card, wrapped
+from ..workers import LatestCall
 from .base import Page
 
 PARTS = {0: "fit on", 1: "held out", 2: "holdout file"}
 SORT_ROLE = Qt.ItemDataRole.UserRole
 DISAGREEMENTS_SHOWN = 500
+FIT_ROWS = 60  # column widths fit the texts of this many rows
 _CONDITION = re.compile(r"^\s*([A-Za-z_][\w.]*)\s*(<=|>=|==|=|<|>|!=)\s*(-?[\d.]+(?:e-?\d+)?)\s*$")
 
 
+def coded(values) -> tuple[np.ndarray, list[str]]:
+    """A column of few distinct values as codes into their texts (the texts sorted)."""
+    values = np.asarray(values)
+    try:
+        distinct, codes = np.unique(values, return_inverse=True)
+    except TypeError:  # values of mixed types: compare them as text
+        distinct, codes = np.unique(values.astype(str), return_inverse=True)
+    return codes.reshape(-1), [str(v) for v in distinct]
+
+
+def _number(text: str) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        return math.nan
+
+
+@dataclass
+class Column:
+    """One column of the Cases table: numbers (``int``, ``float``) or ``text``, a text column
+    held as ``values`` coding into ``labels``."""
+
+    name: str
+    kind: str
+    values: np.ndarray
+    labels: list[str] | None = None
+
+    def text(self, row: int) -> str:
+        v = self.values[row]
+        if self.kind == "text":
+            return self.labels[v]
+        if self.kind == "float":
+            return "missing" if math.isnan(v) else f"{v:.4g}"
+        return str(v)
+
+    def numbers(self) -> np.ndarray:
+        """The values as numbers, for a condition (a text that is no number is NaN)."""
+        if self.kind == "text":
+            return np.array([_number(t) for t in self.labels], dtype=np.float64)[self.values]
+        return self.values.astype(np.float64, copy=False)
+
+    def sort_key(self) -> np.ndarray:
+        """Numbers that sort as the column does: missing values first, texts by text."""
+        if self.kind == "text":
+            rank = np.empty(len(self.labels), dtype=np.float64)
+            rank[sorted(range(len(self.labels)), key=self.labels.__getitem__)] = \
+                np.arange(len(self.labels))
+            return rank[self.values]
+        v = self.values.astype(np.float64)
+        return np.where(np.isnan(v), -np.inf, v)
+
+
 class CasesModel(QAbstractTableModel):
-    """The Cases result as a table: identifiers, answers, then the feature values."""
+    """The Cases result as a table: identifiers, answers, then the feature values.
+
+    Columns stay numpy arrays (the answers as class codes); a cell's text is made only when
+    the view asks for it, so a table of 200,000 rows loads as fast as one of 200.
+    """
 
     def __init__(self) -> None:
         super().__init__()
+        self.cols: list[Column] = []
         self.headers: list[str] = []
-        self.columns: list[np.ndarray] = []
         self.kinds: list[str] = []  # "int", "float", "text"
         self.n = 0
+        self.X: np.ndarray | None = None  # the feature values of every row, in table order
+        self._keys: dict[int, np.ndarray] = {}
 
     def load(self, review) -> None:
         self.beginResetModel()
         c = review.cases
         X = review.case_rows()
-        cls = list(review.forest.classes_)
+        cls = [str(k) for k in review.forest.classes_]
         y = review.data.y
         if y is not None and review.holdout_data is not None and review.holdout_data.y is not None:
             y = np.concatenate([y, review.holdout_data.y])
         elif y is not None and review.holdout_data is not None:
             y = None
         self.n = int(c.ensemble.shape[0])
-        cols = [("row", np.arange(self.n), "int"),
-                ("part", np.array([PARTS.get(int(s), "?") for s in c.split]), "text"),
-                ("ensemble", np.array([str(cls[k]) for k in c.ensemble]), "text")]
-        for k, name in enumerate(cls):
-            cols.append((f"P({name})", c.proba[:, k], "float"))
-        cols += [("surrogate", np.array([str(cls[k]) for k in c.surrogate]), "text"),
-                 ("agree", np.where(c.surrogate == c.ensemble, "yes", "NO"), "text"),
-                 ("leaf", c.surrogate_leaf, "int"),
-                 ("greedy", np.array([str(cls[k]) for k in c.greedy]), "text")]
+        parts = [PARTS.get(k, "?") for k in range(int(c.split.max(initial=0)) + 1)]
+        # rows numbered from 1 in the order of the data file, as in the report and messages
+        cols = [Column("row", "int", np.arange(1, self.n + 1)),
+                Column("part", "text", c.split, parts),
+                Column("ensemble", "text", c.ensemble, cls)]
+        cols += [Column(f"P({name})", "float", c.proba[:, k]) for k, name in enumerate(cls)]
+        cols += [Column("surrogate", "text", c.surrogate, cls),
+                 Column("agree", "text", (c.surrogate != c.ensemble).astype(np.int8),
+                        ["yes", "NO"]),
+                 Column("leaf", "int", c.surrogate_leaf),
+                 Column("greedy", "text", c.greedy, cls)]
         if y is not None:
-            cols.append(("label", np.array([str(v) for v in y]), "text"))
-        for j, name in enumerate(review.data.feature_names):
-            cols.append((name, X[:, j], "float"))
-        self.headers = [h for h, _, _ in cols]
-        self.columns = [v for _, v, _ in cols]
-        self.kinds = [k for _, _, k in cols]
+            cols.append(Column("label", "text", *coded(y)))
+        cols += [Column(name, "float", X[:, j]) for j, name in enumerate(review.data.feature_names)]
+        self.cols, self.X, self._keys = cols, X, {}
+        self.headers = [col.name for col in cols]
+        self.kinds = [col.kind for col in cols]
         self.endResetModel()
 
     def clear(self) -> None:
         self.beginResetModel()
-        self.headers, self.columns, self.kinds, self.n = [], [], [], 0
+        self.cols, self.headers, self.kinds, self.n, self.X, self._keys = [], [], [], 0, None, {}
         self.endResetModel()
 
     def rowCount(self, parent=QModelIndex()) -> int:
@@ -80,26 +142,27 @@ class CasesModel(QAbstractTableModel):
         return self.headers.index(name) if name in self.headers else -1
 
     def text(self, row: int, col: int) -> str:
-        v = self.columns[col][row]
-        if self.kinds[col] == "float":
-            return "missing" if math.isnan(v) else f"{v:.4g}"
-        return str(v)
+        return self.cols[col].text(row)
+
+    def sort_key(self, col: int) -> np.ndarray:
+        if col not in self._keys:
+            self._keys[col] = self.cols[col].sort_key()
+        return self._keys[col]
 
     def data(self, index, role=Qt.ItemDataRole.DisplayRole):
         if not index.isValid():
             return None
-        r, c = index.row(), index.column()
+        return self.cell(index.row(), index.column(), role)
+
+    def cell(self, r: int, c: int, role):
+        col = self.cols[c]
         if role == Qt.ItemDataRole.DisplayRole:
-            return self.text(r, c)
+            return col.text(r)
         if role == SORT_ROLE:
-            v = self.columns[c][r]
-            if self.kinds[c] == "float":
-                return -math.inf if math.isnan(v) else float(v)
-            return int(v) if self.kinds[c] == "int" else str(v)
-        if role == Qt.ItemDataRole.TextAlignmentRole and self.kinds[c] != "text":
+            return float(self.sort_key(c)[r])
+        if role == Qt.ItemDataRole.TextAlignmentRole and col.kind != "text":
             return int(Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignVCenter)
-        if role == Qt.ItemDataRole.ForegroundRole and self.headers[c] == "agree" \
-                and self.columns[c][r] == "NO":
+        if role == Qt.ItemDataRole.ForegroundRole and col.name == "agree" and col.values[r]:
             return theme.qcolor(theme.BAD)
         return None
 
@@ -109,73 +172,205 @@ class CasesModel(QAbstractTableModel):
         return None
 
 
-class CasesFilter(QSortFilterProxyModel):
-    """Rows by part, by agreement and by class; then by a search: a row number, a condition
-    on a column (``age_years > 70``) or any text in the row."""
+_NUMBER_CHARS = set("0123456789.-+einf")
+
+
+def text_matches(cols: list[Column], needle: str, stale=None) -> np.ndarray | None:
+    """Rows with ``needle`` in the text of any cell, ignoring case, as a boolean mask (None
+    when ``stale()`` says the search was overtaken).
+
+    Text columns are matched through their few labels; number columns only when the needle
+    could be part of a number, by writing each distinct value as the table shows it: the
+    one search that is a Python call per value, so the page runs it in a worker.
+    """
+    needle = needle.lower()
+    n = cols[0].values.shape[0] if cols else 0
+    mask = np.zeros(n, dtype=bool)
+    numeric = set(needle) <= _NUMBER_CHARS
+    for col in cols:
+        if stale is not None and stale():
+            return None
+        if col.kind == "text":
+            hits = [k for k, label in enumerate(col.labels) if needle in label.lower()]
+            if hits:
+                mask |= np.isin(col.values, hits)
+            continue
+        if col.kind == "float" and needle in "missing":
+            mask |= np.isnan(col.values)
+        if not numeric:
+            continue
+        distinct, codes = np.unique(col.values, return_inverse=True)
+        texts = [_cell_text(col.kind, v) for v in distinct.tolist()]
+        hit = np.fromiter((needle in t for t in texts), dtype=bool, count=len(texts))
+        if col.kind == "float":
+            hit &= ~np.isnan(distinct)  # written "missing", matched above
+        mask |= hit[codes.reshape(-1)]
+    return mask
+
+
+def _cell_text(kind: str, v) -> str:
+    return f"{v:.4g}" if kind == "float" else str(v)
+
+
+class CasesFilter(QAbstractTableModel):
+    """The rows of a :class:`CasesModel` the reviewer asked for, in the chosen order.
+
+    Rows by part, by agreement and by class; then by a search: a row number, a condition on a
+    column (``age_years > 70``) or any text in the row. The rows shown are a numpy array of
+    source rows (``rows``), chosen with masks and ordered with a stable sort, so filtering
+    and sorting take milliseconds on any length of table; only a text search runs in a
+    worker (:func:`text_matches`; :meth:`set_text_mask` brings its answer).
+    """
 
     MODES = ("all", "disagree", "fit", "held", "ens", "sur")
 
     def __init__(self) -> None:
         super().__init__()
+        self._src: CasesModel | None = None
         self.mode = "all"
         self.value = None
         self.condition = None
-        self.setSortRole(SORT_ROLE)
-        self.setFilterCaseSensitivity(Qt.CaseSensitivity.CaseInsensitive)
-        self.setFilterKeyColumn(-1)
+        self.text = ""  # the text searched for ("": none)
+        self._text_mask: tuple[str, np.ndarray] | None = None  # (text, its rows)
+        self.sort_column = 0
+        self.sort_order = Qt.SortOrder.AscendingOrder
+        self.rows = np.zeros(0, dtype=np.int64)
+        self.pos = np.zeros(0, dtype=np.int64)  # source row -> row here (-1: hidden)
 
-    def _refilter(self, change) -> None:
-        """Apply ``change()`` to the criteria and filter again (Qt 6.10's way when it has it)."""
-        if hasattr(self, "beginFilterChange"):
-            self.beginFilterChange()
-            change()
-            self.endFilterChange(QSortFilterProxyModel.Direction.Rows)
-        else:  # pragma: no cover - Qt before 6.10
-            change()
-            self.invalidateFilter()
+    # ------------------------------------------------------------------ source
+    def setSourceModel(self, model: CasesModel) -> None:
+        self.beginResetModel()
+        self._src = model
+        model.modelAboutToBeReset.connect(self.beginResetModel)
+        model.modelReset.connect(self._source_reset)
+        self._choose()
+        self.endResetModel()
 
+    def sourceModel(self) -> CasesModel | None:
+        return self._src
+
+    def _source_reset(self) -> None:
+        self._text_mask = None
+        self._choose()
+        self.endResetModel()
+
+    def mapToSource(self, index) -> QModelIndex:
+        if not index.isValid() or not 0 <= index.row() < self.rows.size:
+            return QModelIndex()
+        return self._src.index(int(self.rows[index.row()]), index.column())
+
+    def mapFromSource(self, index) -> QModelIndex:
+        if not index.isValid() or not 0 <= index.row() < self.pos.size:
+            return QModelIndex()
+        r = int(self.pos[index.row()])
+        return self.index(r, index.column()) if r >= 0 else QModelIndex()
+
+    # ------------------------------------------------------------------ the table
+    def rowCount(self, parent=QModelIndex()) -> int:
+        return 0 if parent.isValid() else int(self.rows.size)
+
+    def columnCount(self, parent=QModelIndex()) -> int:
+        return 0 if parent.isValid() or self._src is None else self._src.columnCount()
+
+    def data(self, index, role=Qt.ItemDataRole.DisplayRole):
+        if not index.isValid() or not 0 <= index.row() < self.rows.size:
+            return None
+        return self._src.cell(int(self.rows[index.row()]), index.column(), role)
+
+    def cell_text(self, row: int, col: int) -> str:
+        """The text of the cell in ``row`` (counted here) and ``col``."""
+        return self._src.text(int(self.rows[row]), col)
+
+    def headerData(self, section, orientation, role=Qt.ItemDataRole.DisplayRole):
+        return None if self._src is None else self._src.headerData(section, orientation, role)
+
+    def sort(self, column: int, order=Qt.SortOrder.AscendingOrder) -> None:
+        if (int(column), order) == (self.sort_column, self.sort_order):
+            return  # the view asks twice for one click; the rows are in this order already
+        self.sort_column, self.sort_order = int(column), order
+        self._relayout()
+
+    # ------------------------------------------------------------------ criteria
     def set_mode(self, mode: str, value=None) -> None:
-        def change() -> None:
-            self.mode, self.value = mode, value
-        self._refilter(change)
+        self.mode, self.value = mode, value
+        self._relayout()
 
-    def set_search(self, text: str) -> None:
+    def set_search(self, text: str) -> bool:
+        """Search for ``text``; True when it is a text search, whose rows come later through
+        :meth:`set_text_mask` (the rows shown stay as they are until then)."""
         m = _CONDITION.match(text)
-        src = self.sourceModel()
+        src = self._src
         condition, fixed = None, text.strip()
         if m and src is not None and src.column(m.group(1)) >= 0:
             condition, fixed = (src.column(m.group(1)), m.group(2), float(m.group(3))), ""
         elif text.strip().isdigit():
             condition, fixed = (0, "==", float(text.strip())), ""
+        self.condition, self.text = condition, fixed
+        if self.searching:
+            return True
+        self._relayout()
+        return False
 
-        def change() -> None:
-            self.condition = condition
-        self._refilter(change)
-        self.setFilterFixedString(fixed)
+    @property
+    def searching(self) -> bool:
+        """Whether the rows of the text searched for are still to come."""
+        return bool(self.text) and (self._text_mask is None or self._text_mask[0] != self.text)
 
-    def filterAcceptsRow(self, row: int, parent) -> bool:
-        m: CasesModel = self.sourceModel()
-        if self.mode == "disagree" and m.text(row, m.column("agree")) != "NO":
-            return False
-        if self.mode == "fit" and m.text(row, m.column("part")) != "fit on":
-            return False
-        if self.mode == "held" and m.text(row, m.column("part")) == "fit on":
-            return False
-        if self.mode == "ens" and m.text(row, m.column("ensemble")) != self.value:
-            return False
-        if self.mode == "sur" and m.text(row, m.column("surrogate")) != self.value:
-            return False
+    def set_text_mask(self, text: str, mask: np.ndarray) -> None:
+        """The rows holding ``text`` (from :func:`text_matches`)."""
+        self._text_mask = (text, mask)
+        if text == self.text:
+            self._relayout()
+
+    def chosen(self) -> np.ndarray:
+        """Source rows that pass the criteria, in source order."""
+        m = self._src
+        if m is None or m.n == 0:
+            return np.zeros(0, dtype=np.int64)
+        keep = np.ones(m.n, dtype=bool)
+        if self.mode == "disagree":
+            keep &= m.cols[m.column("agree")].values == 1
+        elif self.mode in ("fit", "held"):
+            fit = m.cols[m.column("part")].values == 0
+            keep &= fit if self.mode == "fit" else ~fit
+        elif self.mode in ("ens", "sur"):
+            col = m.cols[m.column("ensemble" if self.mode == "ens" else "surrogate")]
+            keep &= col.values == (col.labels.index(self.value)
+                                   if self.value in col.labels else -1)
         if self.condition is not None:
-            col, op, ref = self.condition
-            v = m.columns[col][row]
-            v = float(v)
-            if math.isnan(v):
-                return False
-            ok = {"<": v < ref, "<=": v <= ref, ">": v > ref, ">=": v >= ref, "==": v == ref,
-                  "=": v == ref, "!=": v != ref}[op]
-            if not ok:
-                return False
-        return super().filterAcceptsRow(row, parent)
+            c, op, ref = self.condition
+            v = m.cols[c].numbers()
+            with np.errstate(invalid="ignore"):
+                keep &= {"<": v < ref, "<=": v <= ref, ">": v > ref, ">=": v >= ref,
+                         "==": v == ref, "=": v == ref, "!=": v != ref}[op] & ~np.isnan(v)
+        if self.text and self._text_mask is not None and self._text_mask[0] == self.text:
+            keep &= self._text_mask[1]
+        return np.flatnonzero(keep)
+
+    def _choose(self) -> None:
+        rows = self.chosen()
+        if rows.size and self._src is not None and self.sort_column < self._src.columnCount():
+            key = self._src.sort_key(self.sort_column)[rows]
+            if self.sort_order == Qt.SortOrder.DescendingOrder:
+                key = -key
+            rows = rows[np.argsort(key, kind="stable")]
+        self.rows = rows
+        self.pos = np.full(self._src.n if self._src is not None else 0, -1, dtype=np.int64)
+        self.pos[rows] = np.arange(rows.size)
+
+    def _relayout(self) -> None:
+        """Choose the rows again; the selection follows its rows (or goes if they do)."""
+        if self.searching:
+            return
+        self.layoutAboutToBeChanged.emit()
+        before = self.persistentIndexList()
+        sources = [int(self.rows[i.row()]) if 0 <= i.row() < self.rows.size else -1
+                   for i in before]
+        self._choose()
+        after = [self.index(int(self.pos[s]), i.column()) if s >= 0 and self.pos[s] >= 0
+                 else QModelIndex() for s, i in zip(sources, before)]
+        self.changePersistentIndexList(before, after)
+        self.layoutChanged.emit()
 
 
 class CasesPage(Page):
@@ -205,6 +400,7 @@ class CasesPage(Page):
         self.body_layout.addLayout(bar)
         QShortcut(QKeySequence.StandardKey.Find, self, activated=self.search.setFocus)
         self.model = CasesModel()
+        self.searcher = LatestCall(self, exclusive=False)  # a text search over every cell
         self.proxy = CasesFilter()
         self.proxy.setSourceModel(self.model)
         self.table = QTableView()
@@ -214,8 +410,8 @@ class CasesPage(Page):
         self.table.setSelectionBehavior(QAbstractItemView.SelectionBehavior.SelectRows)
         self.table.setSelectionMode(QAbstractItemView.SelectionMode.SingleSelection)
         self.table.verticalHeader().setVisible(False)
+        self.table.verticalHeader().setSectionResizeMode(QHeaderView.ResizeMode.Fixed)
         self.table.verticalHeader().setDefaultSectionSize(22)
-        self.table.horizontalHeader().setResizeContentsPrecision(60)  # width from 60 rows
         self.table.setMinimumHeight(340)
         self.table.selectionModel().currentRowChanged.connect(self._row_changed)
         self.detail = wrapped("")
@@ -271,11 +467,32 @@ class CasesPage(Page):
         self.message.setText(f"{c.ensemble.size:,} rows; the surrogate agrees with the ensemble "
                              f"on {c.agreement:.1%} of them ({c.disagreements.size:,} "
                              "disagreements).")
+        self.searcher.drop()
         self.model.load(r)
         self._fill_filter(list(r.forest.classes_))
         self._fill_disagreements()
-        self.table.resizeColumnsToContents()
-        self._update_count()
+        self._fit_columns()
+        self._search(self.search.text())  # the search typed applies to the new rows too
+
+    def _fit_columns(self) -> None:
+        """Each column as wide as its header or its widest text in the first rows, as
+        ``resizeColumnsToContents`` makes it, asking the delegate about one cell per column
+        (Qt's own way asks for every role of every sampled cell: a quarter second here)."""
+        view, model = self.table, self.proxy
+        fm = view.fontMetrics()
+        option = QStyleOptionViewItem()
+        option.font = view.font()
+        option.fontMetrics = fm
+        option.widget = view
+        grid = 1 if view.showGrid() else 0
+        rows = min(model.rowCount(), FIT_ROWS)
+        for c in range(model.columnCount()):
+            width = view.horizontalHeader().sectionSizeHint(c)
+            if rows:
+                widest = max(range(rows), key=lambda r: fm.horizontalAdvance(model.cell_text(r, c)))
+                cell = view.itemDelegate().sizeHint(option, model.index(widest, c)).width()
+                width = max(width, cell + grid)
+            view.setColumnWidth(c, width)
 
     def _fill_filter(self, classes) -> None:
         self.filter.blockSignals(True)
@@ -298,7 +515,7 @@ class CasesPage(Page):
         for i in c.disagreements[:DISAGREEMENTS_SHOWN]:
             i = int(i)
             e, s = int(c.ensemble[i]), int(c.surrogate[i])
-            it = QListWidgetItem(f"row {i} ({PARTS.get(int(c.split[i]), '')}): ensemble "
+            it = QListWidgetItem(f"row {i + 1} ({PARTS.get(int(c.split[i]), '')}): ensemble "
                                  f"{cls[e]} with P = {c.proba[i, e]:.3f}; surrogate {cls[s]} "
                                  f"(leaf {int(c.surrogate_leaf[i])})")
             it.setData(Qt.ItemDataRole.UserRole, i)
@@ -308,8 +525,18 @@ class CasesPage(Page):
                              "table by 'disagreements only'")
 
     def _search(self, text: str) -> None:
-        self.proxy.set_search(text)
+        if self.proxy.set_search(text):
+            needle = self.proxy.text
+            self.searcher.request(text_matches, self.model.cols, needle, stale_check=True,
+                                  done=lambda mask: self._found(needle, mask))
+        else:
+            self.searcher.drop()
         self._update_count()
+
+    def _found(self, needle: str, mask) -> None:
+        if mask is not None:
+            self.proxy.set_text_mask(needle, mask)
+            self._update_count()
 
     def _filter(self, _index: int) -> None:
         mode, value = self.filter.currentData() or ("all", None)
@@ -317,7 +544,8 @@ class CasesPage(Page):
         self._update_count()
 
     def _update_count(self) -> None:
-        self.count.setText(f"{self.proxy.rowCount():,} of {self.model.rowCount():,} rows")
+        self.count.setText(f"searching {self.model.rowCount():,} rows…" if self.proxy.searching
+                           else f"{self.proxy.rowCount():,} of {self.model.rowCount():,} rows")
 
     # ------------------------------------------------------------------ one row
     def select_row(self, row: int) -> bool:
@@ -351,9 +579,9 @@ class CasesPage(Page):
         c, res = r.cases, r.surrogate
         est = res.surrogate
         cls = list(r.forest.classes_)
-        x = r.case_rows()[row]
+        x = self.model.X[row]
         e = int(c.ensemble[row])
-        out = [f"<h3 style='margin:0'>Row {row} <span style='color:{theme.MUTED};"
+        out = [f"<h3 style='margin:0'>Row {row + 1} <span style='color:{theme.MUTED};"
                f"font-weight:normal'>({PARTS.get(int(c.split[row]), '')})</span></h3>",
                "<p><b>The ensemble</b></p><table cellspacing='0' cellpadding='2'>"]
         for k, name in enumerate(cls):

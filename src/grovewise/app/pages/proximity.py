@@ -2,9 +2,13 @@
 
 Choose a sample to see the samples most like it with their predictions and values; the pair
 counts show how many pairs reach each threshold, the one the surrogate must keep together.
+Finding a sample's neighbours compares it with every row in every tree, so it runs in a
+worker; so do the figure and the classes of the closest pairs.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 from PySide6.QtCore import Qt
@@ -14,6 +18,7 @@ from PySide6.QtWidgets import (QAbstractItemView, QHBoxLayout, QHeaderView, QLab
 from ...analysis.proximity import most_similar
 from ..charts import pairs_figure
 from ..widgets import Card, FigureView, KeyValues, wrapped
+from ..workers import LatestCall
 from .base import Page
 
 PAIRS_SHOWN = 300
@@ -46,6 +51,58 @@ def fit_rows(t: QTableWidget, most: int) -> None:
     t.setFixedHeight(t.horizontalHeader().height() + 22 * max(rows, 3) + 6)
 
 
+def class_probabilities(review, rows: np.ndarray) -> np.ndarray:
+    """The ensemble's probabilities for ``rows`` of the review data: from Cases when it has
+    run, otherwise predicted for those rows alone."""
+    c = review.cases
+    if c is not None and c.proba.shape[0] >= review.data.n_rows:
+        return c.proba[rows]
+    return review.forest.predict_proba(review.data.X[rows])
+
+
+@dataclass
+class Neighbours:
+    """What the page shows for one sample: its closest samples, the probabilities of the
+    sample and of each neighbour (in that order), and whether the surrogate was fit on it."""
+
+    row: int
+    similar: object  # grovewise.analysis.proximity.SimilarSamples
+    proba: np.ndarray
+    where: str
+
+
+def sample_neighbours(review, row: int, k: int) -> Neighbours:
+    """The ``k`` samples closest to ``row`` over every row of the review data (a worker's job:
+    each row walks every tree)."""
+    sim = most_similar(review.forest, review.data.X, row, k=k)
+    proba = class_probabilities(review, np.concatenate([[row], sim.neighbours]).astype(np.int64))
+    where = "—"
+    if review.intake is not None:
+        where = "held out" if np.any(review.intake.holdout_rows == row) else "fit on"
+    return Neighbours(row, sim, proba, where)
+
+
+@dataclass
+class ClosestPairs:
+    """The closest pairs (review-data rows ``i``, ``j``), their proximity and the ensemble's
+    class of each row, closest first."""
+
+    i: np.ndarray
+    j: np.ndarray
+    p: np.ndarray
+    class_i: np.ndarray
+    class_j: np.ndarray
+
+
+def closest_pairs(review, most: int = PAIRS_SHOWN) -> ClosestPairs:
+    """The ``most`` closest pairs of the proximity step, with each row's predicted class."""
+    px = review.proximity
+    order = np.argsort(-px.pairs.p, kind="stable")[:most]
+    i, j = px.rows[px.pairs.i[order]], px.rows[px.pairs.j[order]]
+    pred = np.argmax(class_probabilities(review, np.concatenate([i, j])), axis=1)
+    return ClosestPairs(i, j, px.pairs.p[order], pred[:i.size], pred[i.size:])
+
+
 def fmt(v) -> str:
     if v is None or (isinstance(v, float) and np.isnan(v)):
         return "missing"
@@ -61,8 +118,9 @@ class ProximityPage(Page):
 
     def __init__(self, window) -> None:
         super().__init__(window)
-        self._proba = None
-        self._proba_for = None
+        self.lookup = LatestCall(self, exclusive=False)  # the chosen sample's neighbours
+        self.pair_rows = LatestCall(self)  # the closest pairs with their classes
+        self._shown = None  # (row, neighbours) on screen
         self.message = wrapped("", muted=True)
         self.body_layout.addWidget(self.message)
         pick = QHBoxLayout()
@@ -115,18 +173,12 @@ class ProximityPage(Page):
         self._drawn_for = None
 
     # ------------------------------------------------------------------ data
-    def proba(self) -> np.ndarray:
-        """The ensemble's probabilities on the review data (from Cases when it has run)."""
-        r = self.review
-        if r.cases is not None and r.cases.proba.shape[0] >= r.data.n_rows:
-            return r.cases.proba[: r.data.n_rows]
-        if self._proba_for is not r.forest:
-            self._proba = r.forest.predict_proba(r.data.X)
-            self._proba_for = r.forest
-        return self._proba
-
     def reset(self) -> None:
         self._drawn_for = None
+        self._shown = None
+        self.lookup.drop()
+        self.pair_rows.drop()
+        self.pairs_view.clear()
         self.similar.setRowCount(0)
 
     def refresh(self) -> None:
@@ -146,7 +198,7 @@ class ProximityPage(Page):
         self.pairs_card.setVisible(r.proximity is not None)
         if r.proximity is not None and self._drawn_for is not r.proximity:
             self._show_pairs()
-        if self.similar.rowCount() == 0 or self._drawn_for is not r.proximity:
+        if (self._shown is None and not self.lookup.busy) or self._drawn_for is not r.proximity:
             self.show_sample()
         self._drawn_for = r.proximity
 
@@ -161,18 +213,19 @@ class ProximityPage(Page):
             f"{px.n_pairs_at_threshold:,} of {c.n_total_pairs:,} pairs ({share:.2g}%) reach "
             f"proximity {px.threshold:g}{sub}; the surrogate keeps each such pair in one leaf. "
             f"Proximity: the {px.definition}.")
-        self.pairs_view.set_figure(pairs_figure(c, px.threshold, px.n_pairs_at_threshold))
-        proba = self.proba()
-        cls = r.forest.classes_
-        pred = np.argmax(proba, axis=1)
-        order = np.argsort(-px.pairs.p, kind="stable")[:PAIRS_SHOWN]
-        self.pairs.setRowCount(order.size)
-        for k, idx in enumerate(order):
-            i, j = int(px.rows[px.pairs.i[idx]]), int(px.rows[px.pairs.j[idx]])
-            self.pairs.setItem(k, 0, _item(str(i), True))
-            self.pairs.setItem(k, 1, _item(str(j), True))
-            self.pairs.setItem(k, 2, _item(f"{px.pairs.p[idx]:.3f}", True))
-            self.pairs.setItem(k, 3, _item(f"{cls[pred[i]]} / {cls[pred[j]]}"))
+        self.pairs_view.show_built(lambda: pairs_figure(c, px.threshold, px.n_pairs_at_threshold))
+        self.pairs.setRowCount(0)
+        self.pair_rows.request(closest_pairs, r, done=self._fill_pairs)
+
+    def _fill_pairs(self, found: "ClosestPairs") -> None:
+        cls = self.review.forest.classes_
+        self.pairs.setRowCount(found.i.size)
+        for k, (i, j, p, ci, cj) in enumerate(zip(found.i, found.j, found.p, found.class_i,
+                                                  found.class_j)):
+            self.pairs.setItem(k, 0, _item(str(int(i)), True))
+            self.pairs.setItem(k, 1, _item(str(int(j)), True))
+            self.pairs.setItem(k, 2, _item(f"{p:.3f}", True))
+            self.pairs.setItem(k, 3, _item(f"{cls[ci]} / {cls[cj]}"))
         fit_rows(self.pairs, 12)
 
     def _pair_chosen(self) -> None:
@@ -181,31 +234,36 @@ class ProximityPage(Page):
             self.row.setValue(int(self.pairs.item(rows[0].row(), 0).text()))
 
     def show_sample(self) -> None:
+        """Look up the chosen sample's closest samples (in the worker: every row is compared
+        with it, tree by tree) and show them when found."""
         r = self.review
         if r is None or r.data is None:
             return
-        i = int(self.row.value())
-        sim = most_similar(r.forest, r.data.X, i, k=int(self.k.value()))
-        proba = self.proba()
+        i, k = int(self.row.value()), int(self.k.value())
+        self.similar_card.title_label.setText(f"Most similar samples: finding those of row {i}…")
+        self.lookup.request(sample_neighbours, r, i, k, done=self._show_neighbours)
+
+    def _show_neighbours(self, found: "Neighbours") -> None:
+        r = self.review
         cls = r.forest.classes_
-        pred = np.argmax(proba, axis=1)
         y = r.data.y
-        where = "—"
-        if r.intake is not None:
-            where = "held out" if i in set(r.intake.holdout_rows.tolist()) else "fit on"
-        rows = [("Row", str(i)), ("Model's class", f"{cls[pred[i]]} (P = {proba[i, pred[i]]:.3f})"),
-                ("Label", "—" if y is None else str(y[i])), ("Surrogate rows", where)]
+        i, sim, proba = found.row, found.similar, found.proba
+        pred = np.argmax(proba, axis=1)
+        self._shown = (i, sim.neighbours.size)
+        self.similar_card.title_label.setText("Most similar samples")
+        rows = [("Row", str(i)), ("Model's class", f"{cls[pred[0]]} (P = {proba[0, pred[0]]:.3f})"),
+                ("Label", "—" if y is None else str(y[i])), ("Surrogate rows", found.where)]
         if sim.proximity.size:
             rows.append(("Closest", f"row {int(sim.neighbours[0])}, proximity "
                                     f"{sim.proximity[0]:.3f}"))
         self.sample_kv.set_rows(rows)
         self.similar.setRowCount(sim.neighbours.size)
         for k, (j, p) in enumerate(zip(sim.neighbours, sim.proximity)):
-            j = int(j)
-            cells = [str(k + 1), str(j), f"{p:.3f}", str(cls[pred[j]]), f"{proba[j, pred[j]]:.3f}",
+            j, c = int(j), int(pred[k + 1])
+            cells = [str(k + 1), str(j), f"{p:.3f}", str(cls[c]), f"{proba[k + 1, c]:.3f}",
                      "—" if y is None else str(y[j])]
-            for c, text in enumerate(cells):
-                self.similar.setItem(k, c, _item(text, c in (0, 1, 2, 4)))
+            for col, text in enumerate(cells):
+                self.similar.setItem(k, col, _item(text, col in (0, 1, 2, 4)))
         fit_rows(self.similar, 12)
         self._values(i, sim.neighbours[:VALUE_COLUMNS])
 

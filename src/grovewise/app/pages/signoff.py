@@ -17,6 +17,7 @@ from ...errors import GrovewiseError
 from ...review import DECISION_LABELS, DECISIONS, STEPS, Reviewer
 from .. import report_bridge
 from ..widgets import CautionBox, Card, KeyValues, wrapped
+from ..workers import LatestCall
 from .base import Page
 
 
@@ -117,6 +118,7 @@ class SignoffPage(Page):
         self.preview.setMinimumHeight(460)
         self.preview_card.body.addWidget(self.preview)
         self.body_layout.addWidget(self.preview_card)
+        self.composer = LatestCall(self, exclusive=False)  # the report for the preview
         self.exported: list[Path] = []
 
     # ------------------------------------------------------------------ fields
@@ -129,6 +131,7 @@ class SignoffPage(Page):
         self.conditions.setPlainText(rv.conditions)
         self.notes.setPlainText(rv.notes)
         self.preview.setHtml("")
+        self.composer.drop()
 
     def _decision_changed(self) -> None:
         d = self.decision()
@@ -211,20 +214,29 @@ class SignoffPage(Page):
         return self.review is not None and all(self.review.done(s) for s in STEPS)
 
     def update_preview(self) -> bool:
+        """Compose the report for the preview (in the page's worker: its figures take
+        seconds on a large review); the preview shows it when ready. False if it cannot."""
         if not self.ready():
             return False
-        self.store_fields()
-        try:
-            text = report_bridge.preview_html(self.review)
-        except Exception as exc:
-            self.window_.show_problem(exc, "composing the report preview")
+        if not report_bridge.available():
+            self._preview_ready(None)
             return False
+        self.store_fields()
+        self.preview.setPlainText("Composing the preview…")
+        self.composer.request(report_bridge.preview_html, self.review, done=self._preview_ready,
+                              failed=self._preview_failed)
+        return True
+
+    def _preview_ready(self, text: str | None) -> None:
         if text is None:
             self.preview.setPlainText("The report composer is not in this version of Grovewise "
                                       "yet; the preview appears here when it is.")
-            return False
+            return
         self.preview.setHtml(text)
-        return True
+
+    def _preview_failed(self, exc) -> None:
+        self.preview.setPlainText("")
+        self.window_.show_problem(exc, "composing the report preview")
 
     def ask_export(self, formats) -> None:
         folder = QFileDialog.getExistingDirectory(self, "Export the report into a folder")

@@ -12,7 +12,9 @@ from PySide6.QtWidgets import (QDoubleSpinBox, QFileDialog, QFormLayout, QGridLa
 
 from ..charts import SolveChart, stage_words
 from ..theme import mono_font
+from ...report.content import certificate_line
 from ...report.figures_surrogate import surrogate_tree_figure
+from ...weak_spots import weak_spots
 from ..tree_figure import cart_tree_figure
 from ..widgets import CautionBox, Card, FigureView, KeyValues, Verdict, wrapped
 from .base import Page
@@ -29,6 +31,25 @@ STATUS_WORDS = {
     "skipped": "the program did not run; the answer is the best of the fast candidates",
 }
 EXPORTS = ("png", "svg", "json", "mps")
+
+
+def _tree_width(res) -> float:
+    return 2.6 * 2 ** int(res.surrogate.depth) + 0.6
+
+
+def tree_figure(res):
+    """The surrogate tree as the report draws it."""
+    return surrogate_tree_figure(res.surrogate, width=_tree_width(res),
+                                 title="Surrogate: holdout fidelity "
+                                       f"{pct(res.fidelity['surrogate']['holdout'])}")
+
+
+def greedy_figure(res):
+    """The greedy tree (CART) drawn in the same manner, beside it."""
+    est = res.surrogate
+    return cart_tree_figure(res.greedy, list(est.feature_names_), list(est.classes_),
+                            width=_tree_width(res), title="Greedy tree (CART): holdout "
+                            f"fidelity {pct(res.fidelity['greedy']['holdout'])}")
 
 
 def pct(v) -> str:
@@ -61,7 +82,6 @@ class SurrogatePage(Page):
         self._chart_timer.setInterval(400)
         self._chart_timer.timeout.connect(self._draw_chart)
         self.points = []
-        self.figures: dict[str, object] = {}
         top = QHBoxLayout()
         top.setSpacing(12)
         top.addWidget(self._settings_card(), 0)
@@ -70,10 +90,10 @@ class SurrogatePage(Page):
                     "when it is ready, scored on every training row. Lines: the MILP's "
                     "incumbent and the bound it has proved, on its sample of points.")
         self.live_text = wrapped("")
-        self.chart_view = FigureView()
-        self.chart_view.set_figure(self.chart.fig)
+        self.chart_view = FigureView(mark_updates=False)  # redrawn as points arrive: no mark
         live.body.addWidget(self.live_text)
         live.body.addWidget(self.chart_view)
+        self._show_chart()
         top.addWidget(live, 1)
         self.body_layout.addLayout(top)
         self.caution = CautionBox()
@@ -90,8 +110,8 @@ class SurrogatePage(Page):
         grid = QGridLayout()
         grid.addWidget(self.verdict, 0, 0, 1, 2)
         fid_box = QVBoxLayout()
-        fid_box.addWidget(wrapped("Fidelity: the share of rows where the tree gives the "
-                                  "ensemble's class."))
+        fid_box.addWidget(wrapped("Fidelity (unweighted): the share of rows where the tree "
+                                  "gives the ensemble's class."))
         fid_box.addWidget(self.fidelity)
         fid_box.addWidget(self.fidelity_note)
         grid.addLayout(fid_box, 1, 0)
@@ -103,6 +123,12 @@ class SurrogatePage(Page):
         grid.setColumnStretch(1, 1)
         self.result_card.body.addLayout(grid)
         self.body_layout.addWidget(self.result_card)
+        self.weak_card = Card("Weak spots", note="Where the figures above say less than they "
+                              "seem: leaves with few or no holdout rows or a low 95% interval, "
+                              "a train-holdout gap, data the model fits almost perfectly.")
+        self.weak_text = wrapped("")
+        self.weak_card.body.addWidget(self.weak_text)
+        self.body_layout.addWidget(self.weak_card)
         self.tree_card = Card("The surrogate tree", note="Left branch (yes): the rule holds. "
                               "Coefficients and cut points are rounded for reading; the fidelity "
                               "shown is that of the rounded rules.")
@@ -251,12 +277,14 @@ class SurrogatePage(Page):
 
     def _draw_chart(self) -> None:
         if self._chart_dirty or not self.points:
-            self.chart.redraw()
-            self._chart_dirty = False
-            if self.chart_view.canvas is not None:
-                self.chart_view.canvas.draw_idle()
+            self._show_chart()
         if not self.window_.runner.busy:
             self._chart_timer.stop()
+
+    def _show_chart(self) -> None:
+        """Draw the chart's points so far (made and drawn in the view's worker)."""
+        self._chart_dirty = False
+        self.chart_view.show_built(self.chart.snapshot().figure)
 
     def set_busy(self, busy: bool) -> None:
         super().set_busy(busy)
@@ -271,11 +299,11 @@ class SurrogatePage(Page):
     def reset(self) -> None:
         self._drawn_for = None
         self.points = []
+        self.tree_view.clear()
+        self.greedy_view.clear()
         if self.review is not None:
             self.chart.reset(self.review.settings.time_limit)
-            self.chart.redraw()
-            if self.chart_view.canvas is not None:
-                self.chart_view.canvas.draw_idle()
+            self._show_chart()
 
     def refresh(self) -> None:
         r = self.review
@@ -285,8 +313,8 @@ class SurrogatePage(Page):
             ("Kept out (forbidden on the Anatomy page): " + ", ".join(forbidden)) if forbidden
             else "No feature is forbidden (flag them on the Anatomy page).")
         res = r.surrogate if r is not None else None
-        for w in (self.result_card, self.tree_card, self.greedy_card, self.rules_card,
-                  self.stages_card):
+        for w in (self.result_card, self.weak_card, self.tree_card, self.greedy_card,
+                  self.rules_card, self.stages_card):
             w.setVisible(res is not None)
         if r is None:
             self.live_text.setText("Open a model and its data first.")
@@ -296,6 +324,7 @@ class SurrogatePage(Page):
                 self.live_text.setText("Not solved yet: check the settings and press Solve "
                                        "(Ctrl+Return).")
             return
+        self._show_weak_spots()
         if self._drawn_for is res:
             return
         self._drawn_for = res
@@ -307,6 +336,13 @@ class SurrogatePage(Page):
             self._chart_dirty = True
             self._draw_chart()
 
+    def _show_weak_spots(self) -> None:
+        r = self.review
+        spots = weak_spots(r) if r.cases is not None else []
+        self.weak_text.setText("\n\n".join(s.text for s in spots) if spots else
+                               "None found with the review's settings." if r.cases is not None
+                               else "Shown once the cases step has run.")
+
     def _replay(self, res) -> None:
         """A reopened review: draw the chart from the candidates it recorded."""
         from ..workers import SolverPoint
@@ -317,9 +353,7 @@ class SurrogatePage(Page):
             name = "MILP tree" if s["name"] == "program" else s["name"]
             self.chart.add(SolverPoint(s["elapsed"], s["objective"], None, None, name))
         self.chart.finish(res.certificate.get("objective"))
-        self.chart.redraw()
-        if self.chart_view.canvas is not None:
-            self.chart_view.canvas.draw_idle()
+        self._show_chart()
         status = res.certificate["status"]
         self.live_text.setText(f"Finished: {STATUS_WORDS.get(status, status)}. The chart shows "
                                "the candidates recorded with the review.")
@@ -350,6 +384,7 @@ class SurrogatePage(Page):
         rb = cert.get("readback") or {}
         sample = cert.get("sample") or {}
         self.cert.set_rows([
+            ("In words", certificate_line(self.review)),
             ("Status", status), ("Objective", num(cert.get("objective"))),
             ("Bound", num(cert.get("bound"))),
             ("Gap", "—" if cert.get("gap") is None else f"{100 * cert['gap']:.1f}%" + (
@@ -369,19 +404,11 @@ class SurrogatePage(Page):
                                 f"{res.proximity.get('separated_pairs', 0)} separated"),
             ("Solver", f"{cert.get('solver', '')} " + ", ".join(
                 f"{k} {v}" for k, v in (cert.get("versions") or {}).items()))])
-        names = list(est.feature_names_)
-        classes = list(est.classes_)
-        width = 2.6 * 2 ** int(est.depth) + 0.6
-        fig = surrogate_tree_figure(est, title=f"Surrogate: holdout fidelity "
-                                    f"{pct(res.fidelity['surrogate']['holdout'])}", width=width)
-        self.tree_view.set_figure(fig)
-        self.figures["surrogate"] = fig
-        g = res.fidelity["greedy"]
-        gfig = cart_tree_figure(res.greedy, names, classes, width=width,
-                                title=f"Greedy tree (CART): holdout fidelity {pct(g['holdout'])}")
-        self.greedy_view.set_figure(gfig)
+        self.tree_view.show_built(lambda: tree_figure(res))
+        self.greedy_view.show_built(lambda: greedy_figure(res))
         self.rules.setPlainText(est.export_text())
-        self.stages.set_rows([(stage_words(s["name"]), f"objective {s['objective']:.5f}, fidelity "
+        self.stages.set_rows([(stage_words(s["name"]), f"objective {s['objective']:.5f}, "
+                                          f"weighted fidelity "
                                           f"{s['fidelity']:.1%}, ready at {s['elapsed']:.1f} s"
                                           + (f" ({s['note']})" if s.get("note") else ""))
                               for s in res.stages])
@@ -422,7 +449,9 @@ class SurrogatePage(Page):
                 from ...report.figure_files import save_figure
 
                 stem = path.with_suffix("") if path.suffix.lower() == f".{fmt}" else path
-                out = save_figure(self.figures["surrogate"], stem, formats=(fmt,), dpi=200)[0]
+                # a figure of its own at the design size (the one on screen is drawn in a
+                # worker, at the width of the window)
+                out = save_figure(tree_figure(res), stem, formats=(fmt,), dpi=200)[0]
             elif fmt == "json":
                 from ...report.figure_files import write_atomically
 
