@@ -63,7 +63,7 @@ def twenty_thousand(tmp_path_factory):
     return folder
 
 
-@pytest.mark.parametrize("limit", [5.0, 10.0])
+@pytest.mark.parametrize("limit", [5.0, 10.0, 30.0])
 def test_the_time_limit_bounds_the_whole_surrogate_step(twenty_thousand, limit):
     from grovewise.review import Review, ReviewInputs, ReviewSettings
 
@@ -86,3 +86,36 @@ def test_the_time_limit_bounds_the_whole_surrogate_step(twenty_thousand, limit):
     assert first[0] - start < 2.0  # the first progress line comes at once
     names = [s["name"] for s in review.surrogate.stages]
     assert "local_search" in names
+
+
+def test_no_table_header_breaks_mid_word():
+    """The report's widest tables, with breast-cancer feature names in their cells: headers
+    and names wrap at spaces or after an underscore, never inside a word (the PDF's own
+    layout functions)."""
+    from grovewise.report.pdf_report import CELL, CELL_HEAD, CELL_PAD_X, _column_widths, _wrap
+
+    names = [n.replace(" ", "_") for n in load_breast_cancer().feature_names]
+    tables = [
+        (["feature", "impurity", "rank", "permutation (mean)", "(std)", "(se)", "rank"],
+         [[n, "0.1234", "3", "0.0123", "0.0012", "0.0004", "12"] for n in names]),
+        (["row", "part", "ensemble", "its probability", "surrogate", "leaf",
+          "features on its path"],
+         [["1234", "holdout", "malignant", "0.987", "benign", "2",
+           f"{names[22]} = 105.2, {names[27]} = 0.1471"]]),
+        (["row", "part", "ensemble", "its probability", "surrogate", "leaf"] + names[20:24],
+         [["1234", "holdout", "malignant", "0.987", "benign", "2", "25.1", "17.3", "105.2",
+           "1980"]]),
+        (["leaf", "class", "train rows", "train coverage", "train fidelity (unweighted)",
+          "holdout rows", "holdout fidelity (unweighted)"], [["0", "1", "2,100", "45.2%",
+                                                            "93.1%", "900", "92.4%"]]),
+    ]
+    for header, rows in tables:
+        widths = _column_widths(header, rows)
+        cells = [(h, CELL_HEAD, w) for h, w in zip(header, widths)]
+        cells += [(c, CELL, w) for row in rows for c, w in zip(row, widths)]
+        for text, font, width in cells:
+            lines = _wrap(text, font, width - 2 * CELL_PAD_X)
+            words = text.split()
+            for line in lines[:-1]:
+                # a line ends at a whole word or just after an underscore
+                assert line.endswith("_") or line.split()[-1] in words, (text, lines)

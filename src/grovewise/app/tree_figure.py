@@ -38,18 +38,24 @@ def _boxes(cart, names: list[str], classes: list) -> _Box:
     fitted = [int(c) for c in cart.classes_]
     total = max(int(t.n_node_samples[0]), 1)
 
+    def leaf(i: int) -> _Box:
+        v = np.asarray(t.value[i][0], dtype=float)
+        k = int(np.argmax(v))
+        share = v[k] / v.sum() if v.sum() > 0 else float("nan")
+        rows = int(t.n_node_samples[i])
+        pct = 100.0 * rows / total
+        return _Box(f"predict {classes[fitted[k]]}\n{rows} rows "
+                    f"({'<1' if 0 < pct < 1 else f'{pct:.0f}'}%)\nweighted fidelity "
+                    f"{share:.1%}", leaf_class=fitted[k])
+
     def visit(i: int) -> _Box:
         if t.children_left[i] < 0:
-            v = np.asarray(t.value[i][0], dtype=float)
-            k = int(np.argmax(v))
-            share = v[k] / v.sum() if v.sum() > 0 else float("nan")
-            rows = int(t.n_node_samples[i])
-            pct = 100.0 * rows / total
-            return _Box(f"predict {classes[fitted[k]]}\n{rows} rows "
-                        f"({'<1' if 0 < pct < 1 else f'{pct:.0f}'}%)\nfidelity {share:.1%}",
-                        leaf_class=fitted[k])
+            return leaf(i)
+        left, right = visit(int(t.children_left[i])), visit(int(t.children_right[i]))
+        if left.left is None and right.left is None and left.leaf_class == right.leaf_class:
+            return leaf(i)  # a split whose sides predict the same class decides nothing
         rule = f"{names[int(t.feature[i])]} <= {float(t.threshold[i]):.6g}"
-        return _Box(rule, visit(int(t.children_left[i])), visit(int(t.children_right[i])))
+        return _Box(rule, left, right)
     return visit(0)
 
 

@@ -355,7 +355,7 @@ def _column_widths(header: list[str], rows: list[list[str]]) -> list[float]:
         natural.append(max(_width(t, f) for t, f in zip(col, fonts)) + 2 * CELL_PAD_X)
         longest = max((_width(w, f) for t, f in zip(col, fonts) for w in t.split()
                        for w in _soft_parts(w)), default=0.0)
-        minimum.append(min(longest, TEXT_W / len(columns)) + 2 * CELL_PAD_X)
+        minimum.append(longest + 2 * CELL_PAD_X)  # no word is cut while the words fit
     total, least = sum(natural), sum(minimum)
     if total <= TEXT_W:
         stretch = TEXT_W / total if total > 0.7 * TEXT_W else 1.0
