@@ -18,6 +18,7 @@ from .errors import GrovewiseError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 3
+LONG_COMMANDS = ("review", "demo", "surrogate", "reproduce", "batch", "decide")
 DEMO_TIME_LIMIT = 30.0  # seconds for the demo's solve: the sample reaches its best tree sooner
 
 
@@ -527,6 +528,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return EXIT_BAD_INPUT
     warnings.filterwarnings("ignore", category=UserWarning)
+    if args.command in LONG_COMMANDS:  # the numeric libraries take a second or two to load
+        print(f"  [{'start':>9}] grovewise {args.command}: loading the libraries", file=sys.stderr,
+              flush=True)
     try:
         return int(args.func(args) or 0)
     except GrovewiseError as exc:

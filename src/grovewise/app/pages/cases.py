@@ -625,7 +625,8 @@ class CasesPage(Page):
         fid = est.leaf_fidelity_[computed_leaf]
         out.append(f"<p>Leaf {computed_leaf}: class <b>{html.escape(str(cls[s]))}</b>, "
                    f"{int(est.leaf_rows_[computed_leaf]):,} training rows"
-                   + ("" if np.isnan(fid) else f", fidelity {fid:.1%}") + "</p>")
+                   + ("" if np.isnan(fid) else f", weighted fidelity {fid:.1%} on its "
+                                               "training rows") + "</p>")
         if leaf != computed_leaf and not any(st.missing for st in steps):
             out.append(f"<p style='color:{theme.BAD}'>The rules as written lead to leaf {leaf}, "
                        f"the estimator to leaf {computed_leaf}: the row sits on a cut point "

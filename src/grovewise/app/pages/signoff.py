@@ -197,6 +197,7 @@ class SignoffPage(Page):
         if r.surrogate is not None:
             cert = r.surrogate.certificate
             rows.append(("Surrogate", f"status {cert.get('status')}, holdout fidelity "
+                                      "(unweighted) "
                          f"{_pct(r.surrogate.fidelity['surrogate']['holdout'])} (greedy "
                          f"{_pct(r.surrogate.fidelity['greedy']['holdout'])})"))
         rows.append(("Decision", DECISION_LABELS.get(rv.decision, rv.decision)

@@ -40,7 +40,7 @@ def _tree_width(res) -> float:
 def tree_figure(res):
     """The surrogate tree as the report draws it."""
     return surrogate_tree_figure(res.surrogate, width=_tree_width(res),
-                                 title="Surrogate: holdout fidelity "
+                                 title="Surrogate: holdout fidelity (unweighted) "
                                        f"{pct(res.fidelity['surrogate']['holdout'])}")
 
 
@@ -49,7 +49,7 @@ def greedy_figure(res):
     est = res.surrogate
     return cart_tree_figure(res.greedy, list(est.feature_names_), list(est.classes_),
                             width=_tree_width(res), title="Greedy tree (CART): holdout "
-                            f"fidelity {pct(res.fidelity['greedy']['holdout'])}")
+                            f"fidelity (unweighted) {pct(res.fidelity['greedy']['holdout'])}")
 
 
 def pct(v) -> str:
@@ -364,7 +364,7 @@ class SurrogatePage(Page):
         words = STATUS_WORDS.get(status, status)
         f = res.fidelity
         head = (f"{words[:1].upper()}{words[1:]} (status {status}); the tree comes from the "
-                f"{stage_words(res.winner)} stage. Holdout fidelity "
+                f"{stage_words(res.winner)} stage. Holdout fidelity (unweighted) "
                 f"{pct(f['surrogate']['holdout'])} against {pct(f['greedy']['holdout'])} for the "
                 "greedy tree.")
         good = (f["surrogate"]["holdout"] or 0) >= (f["greedy"]["holdout"] or 0)
