@@ -32,7 +32,10 @@ def _wrap(text: str, width: int) -> str:
 
 def surrogate_tree_figure(est, title: str | None = None, width: float = 10.0) -> Figure:
     """The fitted surrogate drawn as a tree: each split's rule in original units (what
-    ``rules_`` says), yes to the left; each leaf's class, training rows and fidelity."""
+    ``rules_`` says), yes to the left; each leaf's class, training rows and fidelity.
+
+    A node that does not split sends every row on to the rightmost leaf below it, so that
+    leaf is drawn in the node's place: the picture has the depth the tree uses."""
     tree = est.tree_
     depth = int(tree.depth)
     nb = 2 ** depth - 1
@@ -40,15 +43,28 @@ def surrogate_tree_figure(est, title: str | None = None, width: float = 10.0) ->
     rules = {r.node: r for r in est.rules_list_}
     classes = list(est.classes_)
     n_leaves = 2 ** depth
-    height = 0.8 + 1.35 * (depth + 1)
+
+    def leaf_of(node: int) -> int:
+        """The leaf a node stands for when it does not split (itself, if a leaf)."""
+        while node < nb:
+            node = 2 * node + 2
+        return node - nb
+
+    def levels(node: int) -> int:
+        if node in rules:
+            return 1 + max(levels(2 * node + 1), levels(2 * node + 2))
+        return 0
+
+    used = levels(0)
+    height = 0.8 + 1.35 * (used + 1)
     fig = Figure(figsize=(width, height), dpi=100)
     ax = fig.add_axes((0.01, 0.01, 0.98, 0.99 - 0.55 / height if title else 0.98))
     ax.set_xlim(0, n_leaves)
-    ax.set_ylim(-depth - 0.7, 0.4)
+    ax.set_ylim(-used - 0.7, 0.4)
     ax.axis("off")
     if title:
         fig.text(0.01, 0.97, title, fontsize=13, fontweight="bold", color=INK, va="top")
-    chars = max(14, int(13 * width / n_leaves))
+    chars = max(14, int(13 * width / max(2 ** used, 1)))
 
     def pos(node: int) -> tuple[float, float]:
         level = int(np.floor(np.log2(node + 1)))
@@ -56,20 +72,13 @@ def surrogate_tree_figure(est, title: str | None = None, width: float = 10.0) ->
         span = n_leaves / 2 ** level
         return span * (index + 0.5), -level
 
-    def reachable(node: int) -> bool:
-        while node > 0:
-            parent = (node - 1) // 2
-            if parent not in rules and node == 2 * parent + 1:
-                return False  # left child of a node that does not split
-            node = parent
-        return True
+    rows = getattr(est, "leaf_rows_", np.zeros(n_leaves))
+    fidelity = getattr(est, "leaf_fidelity_", np.full(n_leaves, np.nan))
+    total = max(float(np.sum(rows)), 1.0)
 
-    for node in range(nb):
-        if not reachable(node):
-            continue
+    def draw(node: int) -> None:
         x, y = pos(node)
         if node in rules:
-            text = _wrap(rules[node].text(names), chars)
             for child, word in ((2 * node + 1, "yes"), (2 * node + 2, "no")):
                 cx, cy = pos(child)
                 ax.annotate("", xy=(cx, cy + 0.28), xytext=(x, y - 0.28),
@@ -77,34 +86,28 @@ def surrogate_tree_figure(est, title: str | None = None, width: float = 10.0) ->
                 ax.text((x + cx) / 2, (y + cy) / 2, word, ha="center", va="center",
                         fontsize=8.5, color=MUTED,
                         bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none"})
-            face, edge = BRANCH_FACE, BRANCH_EDGE
-        else:
-            text = "no split here:\nevery row goes on (no)"
-            cx, cy = pos(2 * node + 2)
-            ax.annotate("", xy=(cx, cy + 0.28), xytext=(x, y - 0.28),
-                        arrowprops={"arrowstyle": "-|>", "color": MUTED, "lw": 1.0, "ls": "--"})
-            face, edge = "white", MUTED
-        ax.text(x, y, text, ha="center", va="center", fontsize=9, color=INK, family="DejaVu Sans",
-                bbox={"boxstyle": "round,pad=0.45", "fc": face, "ec": edge, "lw": 1.2})
-
-    rows = getattr(est, "leaf_rows_", np.zeros(n_leaves))
-    fidelity = getattr(est, "leaf_fidelity_", np.full(n_leaves, np.nan))
-    total = max(float(np.sum(rows)), 1.0)
-    for leaf in range(n_leaves):
-        node = nb + leaf
-        if not reachable(node):
-            continue
-        x, y = pos(node)
+                draw(child)
+            ax.text(x, y, _wrap(rules[node].text(names), chars), ha="center", va="center",
+                    fontsize=9, color=INK, family="DejaVu Sans",
+                    bbox={"boxstyle": "round,pad=0.45", "fc": BRANCH_FACE, "ec": BRANCH_EDGE,
+                          "lw": 1.2})
+            return
+        leaf = leaf_of(node)
         k = int(tree.leaf_class[leaf])
         share = 100 * rows[leaf] / total
         share_text = "<1%" if 0 < share < 1 else f"{share:.0f}%"
-        lines = [f"predict {classes[k]}", f"{int(rows[leaf])} rows ({share_text})"]
+        every = " for every row" if node == 0 else ""
+        lines = [f"predict {classes[k]}{every}", f"{int(rows[leaf])} rows ({share_text})"]
         if np.isfinite(fidelity[leaf]):
             lines.append(f"fidelity {fidelity[leaf]:.1%}")
         ax.text(x, y, "\n".join(lines), ha="center", va="center", fontsize=9, color=INK,
                 bbox={"boxstyle": "round,pad=0.45", "fc": "white", "ec": class_colour(k),
                       "lw": 2.2})
         ax.text(x, y - 0.42, f"leaf {leaf}", ha="center", va="center", fontsize=7.5, color=MUTED)
+
+    draw(0)
+    ax.text(0.0, -used - 0.68, "Leaf fidelity: weighted by the ensemble's confidence, on the "
+            "training rows.", ha="left", va="bottom", fontsize=7.5, color=MUTED)
     return fig
 
 
