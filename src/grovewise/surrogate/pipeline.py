@@ -264,8 +264,8 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         note = "skipped: not asked for"
     elif _stop(cancel):
         note = "skipped: cancelled"
-    elif not st.exact and deadline - time.perf_counter() - st.polish_share * st.time_limit < 1.0:
-        note = "skipped: less than 1 s of the time limit left for it"
+    elif not st.exact and deadline - time.perf_counter() - st.polish_share * st.time_limit < 0.5:
+        note = "skipped: less than 0.5 s of the time limit left for it"
     else:
         reserve = st.polish_share * st.time_limit
         s0 = time.perf_counter()
