@@ -195,7 +195,7 @@ def _jobs(args) -> int:
 
 
 def _pct(v) -> str:
-    """A share as the report prints it (one decimal of a percent)."""
+    """A share as the report prints it (imported late: the report module loads matplotlib)."""
     from .report.content import pct
 
     return pct(v)

@@ -185,8 +185,7 @@ def _rescore(verdict: Verdict, saved: Review, files: dict) -> None:
     X = load_data(files["data"], forest=saved.forest, target=target).X
     if files.get("holdout") is not None:
         X = np.vstack([X, load_data(files["holdout"], forest=saved.forest, target=target).X])
-    filled = np.where(np.isnan(X), saved.cases.fill_values[None, :], X) \
-        if saved.cases is not None else saved.filled(X)
+    filled = saved.filled(X)
     ensemble = saved.forest.predict(X)
     parts = {"train": sur.train_rows, "holdout": sur.holdout_rows,
              "full": np.arange(X.shape[0])}

@@ -288,20 +288,18 @@ class Review:
     def run_step(self, step: str, progress: Progress | None = None,
                  cancel: threading.Event | None = None) -> object:
         """Run one step (its prerequisites must have run)."""
-        from time import perf_counter
-
         report = progress or (lambda *_: None)
         missing = [s for s in REQUIRES[step] if s not in self.results]
         if missing:
             raise SettingError(f"the {step} step needs the {', '.join(missing)} step first.")
         report(step, 0.0, f"{step}: starting")
-        start = perf_counter()
+        start = time.perf_counter()
         runner = getattr(self, f"_run_{step}")
         use_threads(self.jobs)
         result = runner(report, cancel)
         with self._lock:
             self.results[step] = result
-            self.timings[step] = perf_counter() - start
+            self.timings[step] = time.perf_counter() - start
             if step == "intake":  # new inputs: later results no longer apply
                 for later in STEPS[1:]:
                     self.results.pop(later, None)
@@ -369,6 +367,17 @@ class Review:
         proba = getattr(self, "_proba", None)
         if proba is None or proba.shape[0] != self.data.X.shape[0]:
             proba = self._proba = proba_in_blocks(self.forest, self.data.X)
+        return proba
+
+    def rows_proba(self) -> np.ndarray:
+        """The ensemble's probabilities on every row the surrogate sees (the review data,
+        then any holdout file), computed once."""
+        if self.holdout_data is None:
+            return self.predicted_proba()
+        proba = getattr(self, "_rows_proba", None)
+        if proba is None or proba.shape[0] != self._surrogate_rows()[0].shape[0]:
+            proba = self._rows_proba = np.vstack(
+                [self.predicted_proba(), proba_in_blocks(self.forest, self.holdout_data.X)])
         return proba
 
     def _run_anatomy(self, report: Progress, cancel: threading.Event | None) -> AnatomyResult:
@@ -457,9 +466,7 @@ class Review:
         X, held = self._surrogate_rows()
         forbidden = [f for f, kind in st.flags.items() if kind == "forbidden"]
         stop = Cancel(cancel) if cancel is not None else None
-        proba = self.predicted_proba()
-        if self.holdout_data is not None:
-            proba = np.vstack([proba, proba_in_blocks(self.forest, self.holdout_data.X)])
+        proba = self.rows_proba()
 
         def on_progress(info) -> None:
             elapsed = time.perf_counter() - started
@@ -502,11 +509,7 @@ class Review:
         allX, held = self._surrogate_rows()
         split = np.zeros(allX.shape[0], dtype=np.int64)
         split[held] = 2 if self.holdout_data is not None else 1
-        proba = self.predicted_proba()
-        if self.holdout_data is not None:
-            meter = StepMeter(report, "cases", self.holdout_data.X.shape[0],
-                              "holdout rows predicted", cancel=cancel, span=0.5)
-            proba = np.vstack([proba, proba_in_blocks(self.forest, self.holdout_data.X, meter)])
+        proba = self.rows_proba()
         ensemble = np.argmax(proba, axis=1)
         filled = self.filled(allX)
         sur = self.surrogate

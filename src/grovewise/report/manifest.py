@@ -12,9 +12,11 @@ import json
 import platform
 import sys
 from importlib import metadata
+from pathlib import Path
 
 import numpy as np
 
+from ..hashing import sha256_of
 from ..storage import encode
 from ..plain import to_plain
 
@@ -133,10 +135,6 @@ def deterministic(review) -> bool:
 def saved_review_entry(folder, base) -> dict | None:
     """``{"path": ..., "files": {name: sha256}}`` of a saved review folder, the path relative
     to ``base`` (the manifest's folder) when it lies below it; None without such a folder."""
-    from pathlib import Path
-
-    from ..hashing import sha256_of
-
     folder = Path(folder)
     if not folder.is_dir():
         return None
