@@ -29,6 +29,40 @@ LINK_LOGISTIC = "logistic"  # one output: p(classes_[1]) = expit(base + sum of l
 LINK_SOFTMAX = "softmax"  # one output per class: softmax(base + sum of leaf values)
 LINKS = (LINK_MEAN, LINK_LOGISTIC, LINK_SOFTMAX)
 
+# Where a numeric split sends a missing value (``Tree.missing_rule``, one per node).
+MISSING_NAN = 0  # NaN goes the node's missing side; every number is compared
+MISSING_ZERO = 1  # NaN and zero (|x| <= 1e-35, LightGBM's zero_as_missing) go the missing side
+MISSING_NONE = 2  # no missing side: NaN is compared as 0.0 (LightGBM's missing_type None)
+ZERO_AS_MISSING = float(np.float32(1e-35))  # LightGBM's kZeroThreshold (a float32)
+
+# The rule codes of the flat layout: the three above, and a categorical split.
+RULE_CATEGORY = 3
+
+
+@dataclass(frozen=True, eq=False)
+class CategorySplit:
+    """A split on a categorical feature, by category codes (whole numbers >= 0).
+
+    A code in ``left`` goes to the left child, a code in ``right`` to the right child, and any
+    other code (one the split never saw, or a negative number) goes left when ``other_left``.
+    A missing value (NaN) goes where the node's ``missing_left`` says. This covers every
+    library's rule: LightGBM sends its bitset left and the rest right; XGBoost sends its set
+    right and the rest left; scikit-learn's histogram boosting sends categories it did not see
+    in training the missing side.
+    """
+
+    left: np.ndarray
+    right: np.ndarray
+    other_left: bool = False
+
+    def side(self, code: int) -> bool:
+        """True when ``code`` goes left."""
+        if code in set(self.left.tolist()):
+            return True
+        if code in set(self.right.tolist()):
+            return False
+        return self.other_left
+
 
 @dataclass(frozen=True, eq=False)
 class Tree:
@@ -40,6 +74,10 @@ class Tree:
     ``gain`` is the split's weighted impurity decrease (scikit-learn) or loss change
     (XGBoost) and ``cover`` the weighted number of training samples (scikit-learn) or the
     hessian sum (XGBoost) reaching the node.
+
+    ``missing_rule`` (None: ``MISSING_NAN`` everywhere) says per node how a missing value is
+    recognised; ``categorical`` maps a node to its :class:`CategorySplit` (its ``threshold``
+    is then unused).
     """
 
     feature: np.ndarray
@@ -52,6 +90,8 @@ class Tree:
     gain: np.ndarray
     cover: np.ndarray
     output: int = 0
+    missing_rule: np.ndarray | None = None
+    categorical: dict | None = None
 
     @property
     def n_nodes(self) -> int:
@@ -68,6 +108,15 @@ class Tree:
     @property
     def max_depth(self) -> int:
         return int(self.depth.max())
+
+    @property
+    def rules(self) -> np.ndarray:
+        """The rule code of every node (``MISSING_*`` for numeric splits, ``RULE_CATEGORY``)."""
+        rule = (np.zeros(self.n_nodes, dtype=np.int8) if self.missing_rule is None
+                else np.asarray(self.missing_rule, dtype=np.int8).copy())
+        for k in (self.categorical or {}):
+            rule[k] = RULE_CATEGORY
+        return rule
 
 
 def node_depths(left: np.ndarray, right: np.ndarray) -> np.ndarray:
@@ -108,6 +157,9 @@ class Forest:
         The raw margin every sample starts from, one per output (sum links only).
     source : dict
         What the model came from (library, version, estimator, objective, ...).
+    categories : dict
+        For each categorical feature (by index), the category names in code order: code ``c``
+        of feature ``j`` is ``categories[j][c]``. Empty for a model of numeric features only.
     """
 
     trees: list[Tree]
@@ -119,6 +171,7 @@ class Forest:
     base_score: np.ndarray = field(default_factory=lambda: np.zeros(1))
     has_feature_names: bool = True
     source: dict = field(default_factory=dict)
+    categories: dict = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         if self.link not in LINKS:
@@ -128,6 +181,8 @@ class Forest:
         self.classes_ = np.asarray(self.classes_)
         self.base_score = np.asarray(self.base_score, dtype=np.float64).reshape(-1)
         self.feature_names = [str(f) for f in self.feature_names]
+        self.categories = {int(j): [str(c) for c in names]
+                           for j, names in (self.categories or {}).items()}
 
     # ------------------------------------------------------------------ summary
     @property
@@ -160,6 +215,21 @@ class Forest:
         for t in self.trees:
             used[t.feature[t.feature >= 0]] = True
         return np.flatnonzero(used)
+
+    def is_categorical(self, j: int) -> bool:
+        return int(j) in self.categories
+
+    def category_name(self, j: int, code: float) -> str:
+        """The name of code ``code`` of categorical feature ``j`` ("missing" for NaN)."""
+        if code != code:
+            return "missing"
+        names = self.categories.get(int(j), [])
+        c = int(code)
+        return names[c] if 0 <= c < len(names) and c == code else f"code {code:g}"
+
+    @property
+    def n_categorical_splits(self) -> int:
+        return sum(len(t.categorical or {}) for t in self.trees)
 
     # ------------------------------------------------------------------ input
     def check_X(self, X) -> np.ndarray:
@@ -202,15 +272,49 @@ class Forest:
             "left": children("left"),
             "right": children("right"),
             "missing_left": np.concatenate([t.missing_left for t in self.trees]).astype(np.bool_),
+            **self._flat_categories(offsets, int(sizes.sum())),
         }
+
+    def _flat_categories(self, offsets: np.ndarray, n_nodes: int) -> dict:
+        """The rule of every node and the categorical splits' code sets as bit words.
+
+        Node ``k``'s left set is ``bits[ptr[k] : ptr[k] + words[k]]`` and its right set the
+        ``words[k]`` words after it (bit ``c % 64`` of word ``c // 64`` for code ``c``).
+        """
+        rule = np.concatenate([t.rules for t in self.trees]).astype(np.int8)
+        other_left = np.zeros(n_nodes, dtype=np.bool_)
+        ptr = np.full(n_nodes, -1, dtype=np.int64)
+        words = np.zeros(n_nodes, dtype=np.int64)
+        chunks, used = [], 0
+        for t, o in zip(self.trees, offsets):
+            for k, split in sorted((t.categorical or {}).items()):
+                codes = np.concatenate([split.left, split.right]).astype(np.int64)
+                w = int(codes.max()) // 64 + 1 if codes.size else 1
+                block = np.zeros(2 * w, dtype=np.uint64)
+                for side, part in enumerate((split.left, split.right)):
+                    for c in np.asarray(part, dtype=np.int64):
+                        block[side * w + c // 64] |= np.uint64(1) << np.uint64(c % 64)
+                g = int(o) + int(k)
+                ptr[g], words[g], other_left[g] = used, w, bool(split.other_left)
+                chunks.append(block)
+                used += 2 * w
+        bits = np.concatenate(chunks) if chunks else np.zeros(1, dtype=np.uint64)
+        return {"rule": rule, "other_left": other_left, "cat_ptr": ptr, "cat_words": words,
+                "cat_bits": bits}
+
+    @property
+    def decision_arrays(self) -> tuple:
+        """What the compiled walks need to decide a node (``traversal.goes_left``)."""
+        f = self._flat
+        return (f["threshold"], f["missing_left"], f["rule"], f["other_left"], f["cat_ptr"],
+                f["cat_words"], f["cat_bits"])
 
     def _leaf_nodes(self, X: np.ndarray) -> np.ndarray:
         """Global node index of the leaf each row reaches in each tree, shape (n, n_trees)."""
         flat = self._flat
         Xc = np.ascontiguousarray(self.compare_input(X))
-        return leaf_nodes(Xc, flat["feature"], flat["threshold"], flat["left"], flat["right"],
-                          flat["missing_left"], flat["offsets"],
-                          self.compare == COMPARE_LT_FLOAT32)
+        return leaf_nodes(Xc, flat["feature"], self.decision_arrays, flat["left"], flat["right"],
+                          flat["offsets"], self.compare == COMPARE_LT_FLOAT32)
 
     # ------------------------------------------------------------------ prediction
     def apply(self, X) -> np.ndarray:

@@ -12,11 +12,52 @@ import numba
 import numpy as np
 
 
+RULE_MISSING_ZERO = 1  # forest.MISSING_ZERO
+RULE_MISSING_NONE = 2  # forest.MISSING_NONE
+RULE_CATEGORY = 3  # forest.RULE_CATEGORY
+ZERO_AS_MISSING = 1.0000000180025095e-35  # forest.ZERO_AS_MISSING (LightGBM's float32 1e-35)
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def goes_left(x, k, dec, strict):  # pragma: no cover - compiled
+    """Whether value ``x`` goes left at global node ``k``: the one decision rule of every walk.
+
+    ``dec`` is ``Forest.decision_arrays``: thresholds, missing sides, rule codes, the other
+    side of categorical splits, and their code sets as bit words (left words, then right).
+    """
+    threshold, missing_left, rule, other_left, cat_ptr, cat_words, cat_bits = dec
+    r = rule[k]
+    if r == RULE_CATEGORY:
+        if np.isnan(x):
+            return missing_left[k]
+        w = cat_words[k]
+        if x < 0.0 or x >= 64.0 * w:
+            return other_left[k]
+        c = np.int64(x)
+        word = c >> 6
+        bit = np.uint64(1) << np.uint64(c & 63)
+        start = cat_ptr[k]
+        if cat_bits[start + word] & bit:
+            return True
+        if cat_bits[start + w + word] & bit:
+            return False
+        return other_left[k]
+    if np.isnan(x):
+        if r != RULE_MISSING_NONE:
+            return missing_left[k]
+        x = 0.0
+    elif r == RULE_MISSING_ZERO and -ZERO_AS_MISSING <= x <= ZERO_AS_MISSING:
+        return missing_left[k]
+    if strict:
+        return x < threshold[k]
+    return x <= threshold[k]
+
+
 @numba.njit(cache=True, nogil=True, parallel=True)
-def leaf_nodes(X, feature, threshold, left, right, nan_left, roots, strict):  # pragma: no cover
+def leaf_nodes(X, feature, dec, left, right, roots, strict):  # pragma: no cover
     """Global index of the leaf that row i reaches in tree t, as an (n, n_trees) array.
 
-    ``left[k] < 0`` marks a leaf. A NaN value goes left where ``nan_left[k]`` is true.
+    ``left[k] < 0`` marks a leaf; :func:`goes_left` decides every split.
     """
     n = X.shape[0]
     n_trees = roots.shape[0]
@@ -26,14 +67,7 @@ def leaf_nodes(X, feature, threshold, left, right, nan_left, roots, strict):  # 
         for i in range(n):
             k = roots[t]
             while left[k] >= 0:
-                x = X[i, feature[k]]
-                if np.isnan(x):
-                    go_left = nan_left[k]
-                elif strict:
-                    go_left = x < threshold[k]
-                else:
-                    go_left = x <= threshold[k]
-                k = left[k] if go_left else right[k]
+                k = left[k] if goes_left(X[i, feature[k]], k, dec, strict) else right[k]
             out[t, i] = k
     return out.T
 

@@ -19,7 +19,8 @@ trees; ``base + values.sum(axis=1)`` is the explained output:
   ``pred_contribs`` states it).
 
 Splits compare as the model does (``Forest.compare_input`` and the ``<`` / ``<=`` rule of
-``traversal.py``); a missing value (NaN) goes where the node's ``missing_left`` sends it.
+``traversal.py``): every split is decided by ``traversal.goes_left``, missing values and
+categorical splits included.
 
 Two exact algorithms
 --------------------
@@ -67,6 +68,7 @@ import numpy as np
 
 from ..errors import CancelledError, SettingError
 from ..forest import COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_MEAN, Forest
+from ..traversal import goes_left
 
 ALGORITHMS = ("linear", "path")
 DEFAULT_CHUNK_ROWS = 2048  # rows explained at once: the working memory stays flat in n
@@ -137,16 +139,7 @@ class InteractionPair:
 # asks for. ``x`` is one row already in the comparison's float type; ``phi`` is (p, outputs).
 
 @numba.njit(cache=True, nogil=True)
-def _goes_left(xv, thr, nan_left, strict):  # pragma: no cover - compiled
-    if np.isnan(xv):
-        return nan_left
-    if strict:
-        return xv < thr
-    return xv <= thr
-
-
-@numba.njit(cache=True, nogil=True)
-def _tree_linear(XT, nb, feature, threshold, left, right, missing_left, frac, value, root, col,
+def _tree_linear(XT, nb, feature, dec, left, right, frac, value, root, col,
                  strict, cond, cond_on, scale, tq, wq, phiT,
                  G, IQ, S, R, O, SO, GL, node, phase, efeat, slev, sz, Z,
                  lastlev):  # pragma: no cover - compiled
@@ -187,10 +180,8 @@ def _tree_linear(XT, nb, feature, threshold, left, right, missing_left, frac, va
             if ph < 2:
                 f = feature[n]
                 if ph == 0:
-                    thr = threshold[n]
-                    nan_left = missing_left[n]
                     for b in range(nb):
-                        GL[L, b] = 1.0 if _goes_left(XT[f, b], thr, nan_left, strict) else 0.0
+                        GL[L, b] = 1.0 if goes_left(XT[f, b], n, dec, strict) else 0.0
                 is_left = ph == 0
                 child = left[n] if is_left else right[n]
                 phase[L] = ph + 1
@@ -321,7 +312,7 @@ def _unwound_sum(pz, po, pw, ud, idx):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, nogil=True)
-def _tree_path(x, feature, threshold, left, right, missing_left, frac, value, root, col,
+def _tree_path(x, feature, dec, left, right, frac, value, root, col,
                strict, cond, cond_on, scale, phi,
                pd, pz, po, pw, ulen, node, phase, hot, cf, iz, io):  # pragma: no cover
     """Add one tree's Shapley values for row ``x`` (times ``scale``) into ``phi`` (Algorithm 2)."""
@@ -350,7 +341,7 @@ def _tree_path(x, feature, threshold, left, right, missing_left, frac, value, ro
             continue
         f = feature[n]
         if ph == 0:
-            if _goes_left(x[f], threshold[n], missing_left[n], strict):
+            if goes_left(x[f], n, dec, strict):
                 hot[L] = left[n]
             else:
                 hot[L] = right[n]
@@ -448,7 +439,7 @@ def _path_workspace(depth):  # pragma: no cover - compiled
 # keeps numba's compile time (once, then cached on disk) to a few seconds per kernel.
 
 @numba.njit(cache=True, nogil=True, parallel=True)
-def _linear_rows(X, feature, threshold, left, right, missing_left, frac, value, roots, cols,
+def _linear_rows(X, feature, dec, left, right, frac, value, roots, cols,
                  strict, depth, tq, wq, B, out):  # pragma: no cover - compiled
     """Shapley values of every row of ``X`` into ``out`` (n, p, outputs), linear walk.
 
@@ -461,7 +452,7 @@ def _linear_rows(X, feature, threshold, left, right, missing_left, frac, value, 
         b0, nb, XT, phiT, ws = _block_start(X, blk, B, depth, tq.shape[0], value.shape[1],
                                             n_out)
         for t in range(roots.shape[0]):
-            _tree_linear(XT, nb, feature, threshold, left, right, missing_left, frac, value,
+            _tree_linear(XT, nb, feature, dec, left, right, frac, value,
                          roots[t], cols[t], strict, -1, False, 1.0, tq, wq, phiT, *ws)
         for b in range(nb):
             for j in range(p):
@@ -470,7 +461,7 @@ def _linear_rows(X, feature, threshold, left, right, missing_left, frac, value, 
 
 
 @numba.njit(cache=True, nogil=True, parallel=True)
-def _path_rows(X, feature, threshold, left, right, missing_left, frac, value, roots, cols,
+def _path_rows(X, feature, dec, left, right, frac, value, roots, cols,
                strict, depth, tq, wq, B, out):  # pragma: no cover - compiled
     """Shapley values of every row of ``X`` into ``out`` (n, p, outputs), Algorithm 2 (row by
     row; ``tq``, ``wq`` and ``B`` are not used)."""
@@ -480,7 +471,7 @@ def _path_rows(X, feature, threshold, left, right, missing_left, frac, value, ro
         phi = out[r]
         phi[:] = 0.0
         for t in range(roots.shape[0]):
-            _tree_path(X[r], feature, threshold, left, right, missing_left, frac, value,
+            _tree_path(X[r], feature, dec, left, right, frac, value,
                        roots[t], cols[t], strict, -1, False, 1.0, phi, *ws)
 
 
@@ -512,7 +503,7 @@ def _symmetric_with_main_effects(M, phi):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, nogil=True, parallel=True)
-def _linear_interaction_rows(X, feature, threshold, left, right, missing_left, frac, value,
+def _linear_interaction_rows(X, feature, dec, left, right, frac, value,
                              roots, cols, strict, depth, tq, wq, B, tf_ptr, tf_idx,
                              out):  # pragma: no cover - compiled
     """Shapley interaction values of every row of ``X`` into ``out`` (n, p, p, outputs)."""
@@ -525,12 +516,12 @@ def _linear_interaction_rows(X, feature, threshold, left, right, missing_left, f
         M = out[b0:b0 + nb]
         M[:] = 0.0
         for t in range(roots.shape[0]):
-            _tree_linear(XT, nb, feature, threshold, left, right, missing_left, frac, value,
+            _tree_linear(XT, nb, feature, dec, left, right, frac, value,
                          roots[t], cols[t], strict, -1, False, 1.0, tq, wq, phiT, *ws)
             for a in range(tf_ptr[t], tf_ptr[t + 1]):
                 j = tf_idx[a]  # column j: (phi_i(x_j known) - phi_i(x_j unknown)) / 2
                 for known in (True, False):
-                    _tree_linear(XT, nb, feature, threshold, left, right, missing_left, frac,
+                    _tree_linear(XT, nb, feature, dec, left, right, frac,
                                  value, roots[t], cols[t], strict, j, known,
                                  0.5 if known else -0.5, tq, wq, halfT, *ws)
                 for a2 in range(tf_ptr[t], tf_ptr[t + 1]):
@@ -548,7 +539,7 @@ def _linear_interaction_rows(X, feature, threshold, left, right, missing_left, f
 
 
 @numba.njit(cache=True, nogil=True, parallel=True)
-def _path_interaction_rows(X, feature, threshold, left, right, missing_left, frac, value,
+def _path_interaction_rows(X, feature, dec, left, right, frac, value,
                            roots, cols, strict, depth, tq, wq, B, tf_ptr, tf_idx,
                            out):  # pragma: no cover - compiled
     """As ``_linear_interaction_rows``, with Algorithm 2's walk."""
@@ -562,13 +553,13 @@ def _path_interaction_rows(X, feature, threshold, left, right, missing_left, fra
         phi = np.zeros((p, n_out))
         half = np.empty((p, n_out))
         for t in range(roots.shape[0]):
-            _tree_path(x, feature, threshold, left, right, missing_left, frac, value,
+            _tree_path(x, feature, dec, left, right, frac, value,
                        roots[t], cols[t], strict, -1, False, 1.0, phi, *ws)
             for a in range(tf_ptr[t], tf_ptr[t + 1]):
                 j = tf_idx[a]
                 half[:] = 0.0
                 for known in (True, False):
-                    _tree_path(x, feature, threshold, left, right, missing_left, frac, value,
+                    _tree_path(x, feature, dec, left, right, frac, value,
                                roots[t], cols[t], strict, j, known, 0.5 if known else -0.5,
                                half, *ws)
                 _add_column(M, half, j)
@@ -608,10 +599,9 @@ class _Prepared:
     """A forest's nodes laid out for the walks (built once per Forest, kept while it lives)."""
 
     feature: np.ndarray
-    threshold: np.ndarray
+    dec: tuple  # Forest.decision_arrays
     left: np.ndarray
     right: np.ndarray
-    missing_left: np.ndarray
     frac: np.ndarray  # cover(node) / cover(parent); 1 at roots; 0 under a zero-cover parent
     value: np.ndarray  # (nodes, V), already divided by the tree count for the mean link
     roots: np.ndarray
@@ -672,8 +662,7 @@ def _build(forest: Forest) -> _Prepared:
         idx.extend(used.tolist())
         ptr.append(len(idx))
     return _Prepared(
-        feature=flat["feature"], threshold=flat["threshold"], left=left, right=right,
-        missing_left=flat["missing_left"], frac=frac, value=value, roots=roots, cols=cols,
+        feature=flat["feature"], dec=forest.decision_arrays, left=left, right=right, frac=frac, value=value, roots=roots, cols=cols,
         strict=forest.compare == COMPARE_LT_FLOAT32, depth=int(forest.max_depth), base=base,
         tf_ptr=np.asarray(ptr, dtype=np.int64), tf_idx=np.asarray(idx, dtype=np.int64),
         tq=tq, wq=wq, block=_block_rows(int(forest.max_depth), tq.shape[0], value.shape[1]))
@@ -734,7 +723,7 @@ def _run_chunks(forest: Forest, X, kernel, out_shape, *, algorithm, jobs, progre
                                      f"{n:,} rows; nothing was kept.")
             e = min(n, s + chunk_rows)
             Xc = np.ascontiguousarray(forest.compare_input(X[s:e]))
-            kernel(Xc, prep.feature, prep.threshold, prep.left, prep.right, prep.missing_left,
+            kernel(Xc, prep.feature, prep.dec, prep.left, prep.right,
                    prep.frac, prep.value, prep.roots, prep.cols, prep.strict, prep.depth,
                    prep.tq, prep.wq, min(prep.block, e - s), *extra_args, out[s:e])
             if progress is not None:
