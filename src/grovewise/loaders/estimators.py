@@ -4,8 +4,7 @@ from __future__ import annotations
 
 from ..errors import UnsupportedModelError
 from ..forest import Forest
-from .sklearn_models import KINDS, forest_from_sklearn, is_sklearn_model
-from .xgboost_models import forest_from_xgboost, is_xgboost_model
+from .families import families, family_of
 
 
 def from_estimator(estimator) -> Forest:
@@ -16,8 +15,10 @@ def from_estimator(estimator) -> Forest:
     estimator : object
         A fitted scikit-learn tree classifier (``DecisionTreeClassifier``,
         ``RandomForestClassifier``, ``ExtraTreesClassifier``, ``GradientBoostingClassifier``,
-        ``HistGradientBoostingClassifier``), an ``xgboost.XGBClassifier`` or an
-        ``xgboost.Booster``. A Forest is returned as it is.
+        ``HistGradientBoostingClassifier``) or a ``Pipeline`` ending in one, an
+        ``xgboost.XGBClassifier`` or ``Booster``, a ``lightgbm.LGBMClassifier`` or ``Booster``,
+        a ``catboost.CatBoostClassifier``, or an ONNX model holding a tree ensemble
+        classifier. A Forest is returned as it is.
 
     Raises
     ------
@@ -26,10 +27,10 @@ def from_estimator(estimator) -> Forest:
     """
     if isinstance(estimator, Forest):
         return estimator
-    if is_sklearn_model(estimator):
-        return forest_from_sklearn(estimator)
-    if is_xgboost_model(estimator):
-        return forest_from_xgboost(estimator)
-    raise UnsupportedModelError(
-        f"{type(estimator).__module__}.{type(estimator).__name__} is not a supported model; "
-        f"supported: scikit-learn {', '.join(KINDS)}, and XGBoost XGBClassifier or Booster.")
+    fam = family_of(estimator)
+    if fam is None:
+        supported = "; ".join(f.supported for f in families())
+        raise UnsupportedModelError(
+            f"{type(estimator).__module__}.{type(estimator).__name__} is not a supported "
+            f"model; supported: {supported}.")
+    return fam.convert(estimator)

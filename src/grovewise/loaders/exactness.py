@@ -7,10 +7,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from ..forest import Forest
-
-# The tolerances of the contract: scikit-learn to 1e-9, XGBoost (float32 sums) to 2e-6.
-TOLERANCE = {"scikit-learn": 1e-9, "xgboost": 2e-6}
-
+from .families import NoReference, family_of
 
 @dataclass
 class ExactnessCheck:
@@ -23,13 +20,18 @@ class ExactnessCheck:
     predictions_equal: bool
     leaves_equal: bool | None  # None where the library has no leaf-index method
     sample: dict | None = None  # how the rows were chosen from larger data (grovewise.sampling)
+    no_reference: str | None = None  # why the library could not be asked (nothing compared)
 
     @property
     def passed(self) -> bool:
+        if self.no_reference:
+            return True
         return (self.max_abs_proba_diff <= self.tolerance and self.predictions_equal
                 and self.leaves_equal is not False)
 
     def text(self) -> str:
+        if self.no_reference:
+            return f"not checked against {self.library}: {self.no_reference}"
         verdict = "exact" if self.passed else "NOT exact"
         leaves = {True: "leaf ids equal", False: "leaf ids differ",
                   None: "no leaf ids to compare"}[self.leaves_equal]
@@ -44,28 +46,6 @@ class ExactnessCheck:
         return {**asdict(self), "passed": self.passed}
 
 
-def _library_outputs(native, X: np.ndarray, feature_names: list[str] | None):
-    """(probabilities, class indices, leaf ids or None) from the library's own object."""
-    if type(native).__name__ == "Booster":
-        import xgboost
-
-        dm = xgboost.DMatrix(X, feature_names=feature_names)
-        p = native.predict(dm)
-        proba = np.column_stack([1 - p, p]) if p.ndim == 1 else p
-        if native.attr("best_iteration") is None:
-            leaves = native.predict(dm, pred_leaf=True).astype(np.int64)
-        else:
-            leaves = None
-        return proba, np.argmax(proba, axis=1), leaves
-    if feature_names is not None:  # the estimator was fit on a table with these columns
-        import pandas as pd
-
-        X = pd.DataFrame(X, columns=feature_names)
-    proba = native.predict_proba(X)
-    leaves = native.apply(X).reshape(X.shape[0], -1) if hasattr(native, "apply") else None
-    return proba, np.argmax(proba, axis=1), leaves
-
-
 CHUNK_ROWS = 20_000  # rows compared at a time: progress, and memory flat in the data's size
 
 
@@ -77,13 +57,18 @@ def check_exactness(forest: Forest, native, X: np.ndarray, *, progress=None,
     follows each block (raise from it to stop). ``sample`` records how ``X`` was drawn from
     larger data, for the text.
     """
-    library = "xgboost" if forest.kind == "xgboost" else "scikit-learn"
-    names = forest.feature_names if forest.has_feature_names else None
+    fam = family_of(native)
+    library = forest.source.get("library", fam.library if fam else "?")
     n = X.shape[0]
     diff, classes_equal, leaves_equal = 0.0, True, None
     for s in range(0, n, CHUNK_ROWS):
         block = X[s:s + CHUNK_ROWS]
-        proba, index, leaves = _library_outputs(native, block, names)
+        try:
+            proba, index, leaves = fam.reference(native, block, forest)
+        except NoReference as why:
+            return ExactnessCheck(library=library, rows=0, max_abs_proba_diff=0.0,
+                                  tolerance=fam.tolerance, predictions_equal=True,
+                                  leaves_equal=None, sample=sample, no_reference=str(why))
         ours = forest.predict_proba(block)
         diff = max(diff, float(np.max(np.abs(ours - proba))))
         classes_equal &= bool(np.array_equal(np.argmax(ours, axis=1), index))
@@ -93,5 +78,5 @@ def check_exactness(forest: Forest, native, X: np.ndarray, *, progress=None,
         if progress is not None:
             progress(min(n, s + CHUNK_ROWS), n)
     return ExactnessCheck(library=library, rows=int(n), max_abs_proba_diff=diff,
-                          tolerance=TOLERANCE[library], predictions_equal=classes_equal,
+                          tolerance=fam.tolerance, predictions_equal=classes_equal,
                           leaves_equal=leaves_equal, sample=sample)

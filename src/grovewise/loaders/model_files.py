@@ -1,6 +1,9 @@
 """Model files -> Forest, refusing files that could run code unless the user trusts them.
 
-- ``.json`` / ``.ubj``: XGBoost's own model files (read by XGBoost; no code runs).
+- ``.json``: XGBoost's model, LightGBM's ``dump_model()`` or CatBoost's JSON export, told
+  apart by their content (read as data; no code runs).
+- ``.ubj``: XGBoost's binary JSON; ``.txt``: LightGBM's model text; ``.cbm``: CatBoost's
+  model; ``.onnx``: an ONNX model holding a tree ensemble classifier.
 - ``.skops``: scikit-learn models saved with skops; only the types a tree ensemble needs are
   accepted unless the file is trusted.
 - ``.pkl`` / ``.pickle`` / ``.joblib``: can run code on load; refused unless trusted.
@@ -16,10 +19,15 @@ from ..errors import ModelFileError, UnsafeModelError
 from ..forest import Forest
 from .estimators import from_estimator
 
-XGBOOST_SUFFIXES = (".json", ".ubj")
+JSON_SUFFIXES = (".json",)
+XGBOOST_SUFFIXES = (".ubj",)
+LIGHTGBM_SUFFIXES = (".txt",)
+CATBOOST_SUFFIXES = (".cbm",)
+ONNX_SUFFIXES = (".onnx",)
 SKOPS_SUFFIXES = (".skops",)
 PICKLE_SUFFIXES = (".pkl", ".pickle", ".joblib")
-SUFFIXES = XGBOOST_SUFFIXES + SKOPS_SUFFIXES + PICKLE_SUFFIXES
+SUFFIXES = (JSON_SUFFIXES + XGBOOST_SUFFIXES + LIGHTGBM_SUFFIXES + CATBOOST_SUFFIXES
+            + ONNX_SUFFIXES + SKOPS_SUFFIXES + PICKLE_SUFFIXES)
 
 # Types beyond skops' own defaults that a supported scikit-learn tree model holds.
 SKOPS_ALLOWED = frozenset({
@@ -39,8 +47,10 @@ SKOPS_ALLOWED = frozenset({
     "builtins.object",
 })
 
-EXPECTED = ("an XGBoost model (.json or .ubj), a scikit-learn model saved with skops (.skops), "
-            "or, only when you trust its origin, a pickle/joblib file (.pkl, .pickle, .joblib)")
+EXPECTED = ("an XGBoost model (.json or .ubj), a LightGBM model (its model text .txt, or "
+            "dump_model .json), a CatBoost model (.cbm or .json), an ONNX model (.onnx), a "
+            "scikit-learn model or pipeline saved with skops (.skops), or, only when you trust "
+            "its origin, a pickle/joblib file (.pkl, .pickle, .joblib)")
 
 
 def load_model(path, *, trusted: bool = False) -> Forest:
@@ -93,21 +103,47 @@ def load_native(path, *, trusted: bool = False):
         return _load_pickle(p)
     if suffix in SKOPS_SUFFIXES:
         return _load_skops(p, trusted)
+    if suffix in JSON_SUFFIXES:
+        return _load_json(p)
+    if suffix in LIGHTGBM_SUFFIXES:
+        from .lightgbm_models import read_lightgbm_text
+
+        return read_lightgbm_text(p)
+    if suffix in CATBOOST_SUFFIXES:
+        from .catboost_models import read_catboost_file
+
+        return read_catboost_file(p)
+    if suffix in ONNX_SUFFIXES:
+        from .onnx_models import read_onnx_file
+
+        return read_onnx_file(p)
     return _load_xgboost(p)
+
+
+def _load_json(p: Path):
+    """A JSON model file: XGBoost's, LightGBM's dump or CatBoost's, told apart by content."""
+    try:
+        doc = json.loads(p.read_text(encoding="utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise ModelFileError(f"{p}: not valid JSON ({exc}); expected {EXPECTED}.") from None
+    if isinstance(doc, dict) and "learner" in doc:
+        return _load_xgboost(p)
+    if isinstance(doc, dict) and "tree_info" in doc:
+        from .lightgbm_models import read_lightgbm_dump
+
+        return read_lightgbm_dump(doc, p)
+    if isinstance(doc, dict) and "oblivious_trees" in doc:
+        from .catboost_models import read_catboost_json
+
+        return read_catboost_json(doc, p)
+    raise ModelFileError(f"{p}: JSON, but not a model Grovewise knows (no 'learner' entry as "
+                         "in XGBoost's save_model, no 'tree_info' as in LightGBM's dump_model, "
+                         "no 'oblivious_trees' as in CatBoost's JSON export).")
 
 
 def _load_xgboost(p: Path):
     import xgboost
 
-    if p.suffix.lower() == ".json":
-        try:
-            doc = json.loads(p.read_text(encoding="utf-8"))
-        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-            raise ModelFileError(f"{p}: not valid JSON ({exc}); expected an XGBoost model "
-                                 "written by save_model.") from None
-        if not isinstance(doc, dict) or "learner" not in doc:
-            raise ModelFileError(f"{p}: JSON, but not an XGBoost model (no 'learner' entry); "
-                                 "expected a file written by XGBoost's save_model.")
     booster = xgboost.Booster()
     try:
         booster.load_model(str(p))

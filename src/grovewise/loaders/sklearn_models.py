@@ -13,6 +13,7 @@ import numpy as np
 from ..errors import UnsupportedModelError
 from ..forest import (COMPARE_LE_FLOAT32, COMPARE_LE_FLOAT64, LINK_LOGISTIC, LINK_MEAN,
                       LINK_SOFTMAX, Forest, Tree, node_depths)
+from .families import Family
 
 KINDS = {
     "DecisionTreeClassifier": "decision_tree",
@@ -155,3 +156,20 @@ def forest_from_sklearn(est) -> Forest:
         return _convert_hist_gradient_boosting(est)
     raise UnsupportedModelError(f"{name} is not a supported scikit-learn model; supported: "
                                 f"{', '.join(KINDS)}.")
+
+
+def sklearn_reference(native, X: np.ndarray, forest: Forest):
+    """scikit-learn's own ``predict_proba`` and ``apply`` on ``X`` (a table with the model's
+    column names when it was fitted on one)."""
+    if forest.has_feature_names:
+        import pandas as pd
+
+        X = pd.DataFrame(X, columns=forest.feature_names)
+    proba = native.predict_proba(X)
+    leaves = native.apply(X).reshape(X.shape[0], -1) if hasattr(native, "apply") else None
+    return proba, np.argmax(proba, axis=1), leaves
+
+
+FAMILY = Family(library="scikit-learn", tolerance=1e-9, matches=is_sklearn_model,
+                convert=forest_from_sklearn, reference=sklearn_reference,
+                supported=f"scikit-learn {', '.join(KINDS)}")

@@ -14,6 +14,7 @@ import numpy as np
 
 from ..errors import ModelFileError, UnsupportedModelError
 from ..forest import COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, Forest, Tree, node_depths
+from .families import Family
 
 OBJECTIVES = ("binary:logistic", "multi:softprob", "multi:softmax")
 
@@ -132,3 +133,25 @@ def forest_from_xgboost(obj) -> Forest:
         forest.source["estimator"] = "Booster"
         return forest
     raise UnsupportedModelError(f"{type(obj).__name__} is not a supported XGBoost model.")
+
+
+def xgboost_reference(native, X: np.ndarray, forest: Forest):
+    """XGBoost's own probabilities, classes and leaf ids (``pred_leaf``) on ``X``."""
+    import xgboost
+
+    booster = native.get_booster() if isinstance(native, xgboost.XGBModel) else native
+    names = forest.feature_names if forest.has_feature_names else None
+    dm = xgboost.DMatrix(X, feature_names=names)
+    best = booster.attr("best_iteration")
+    upto = (0, int(best) + 1) if best is not None else (0, 0)  # as the Forest keeps them
+    p = booster.predict(dm, iteration_range=upto)
+    proba = np.column_stack([1 - p, p]) if p.ndim == 1 else p
+    leaves = booster.predict(dm, pred_leaf=True, iteration_range=upto)
+    leaves = leaves.astype(np.int64).reshape(X.shape[0], -1)
+    return proba, np.argmax(proba, axis=1), leaves
+
+
+# XGBoost sums in float32, so the contract is 2e-6.
+FAMILY = Family(library="xgboost", tolerance=2e-6, matches=is_xgboost_model,
+                convert=forest_from_xgboost, reference=xgboost_reference,
+                supported="XGBoost XGBClassifier or Booster")
