@@ -35,8 +35,9 @@ MISSING_ZERO = 1  # NaN and zero (|x| <= 1e-35, LightGBM's zero_as_missing) go t
 MISSING_NONE = 2  # no missing side: NaN is compared as 0.0 (LightGBM's missing_type None)
 ZERO_AS_MISSING = float(np.float32(1e-35))  # LightGBM's kZeroThreshold (a float32)
 
-# The rule codes of the flat layout: the three above, and a categorical split.
-RULE_CATEGORY = 3
+# The rule codes of the flat layout: the three above, and two kinds of categorical split.
+RULE_CATEGORY = 3  # a negative value is no category
+RULE_CATEGORY_TRUNCATED = 4  # the value is truncated to a whole number first (LightGBM)
 
 
 @dataclass(frozen=True, eq=False)
@@ -48,20 +49,14 @@ class CategorySplit:
     A missing value (NaN) goes where the node's ``missing_left`` says. This covers every
     library's rule: LightGBM sends its bitset left and the rest right; XGBoost sends its set
     right and the rest left; scikit-learn's histogram boosting sends categories it did not see
-    in training the missing side.
+    in training the missing side. ``truncated``: the value is cut to a whole number before it
+    is looked up (LightGBM), so a value in (-1, 0) reads as code 0 rather than as no code.
     """
 
     left: np.ndarray
     right: np.ndarray
     other_left: bool = False
-
-    def side(self, code: int) -> bool:
-        """True when ``code`` goes left."""
-        if code in set(self.left.tolist()):
-            return True
-        if code in set(self.right.tolist()):
-            return False
-        return self.other_left
+    truncated: bool = False
 
 
 @dataclass(frozen=True, eq=False)
@@ -114,8 +109,8 @@ class Tree:
         """The rule code of every node (``MISSING_*`` for numeric splits, ``RULE_CATEGORY``)."""
         rule = (np.zeros(self.n_nodes, dtype=np.int8) if self.missing_rule is None
                 else np.asarray(self.missing_rule, dtype=np.int8).copy())
-        for k in (self.categorical or {}):
-            rule[k] = RULE_CATEGORY
+        for k, split in (self.categorical or {}).items():
+            rule[k] = RULE_CATEGORY_TRUNCATED if split.truncated else RULE_CATEGORY
         return rule
 
 

@@ -15,6 +15,7 @@ import numpy as np
 RULE_MISSING_ZERO = 1  # forest.MISSING_ZERO
 RULE_MISSING_NONE = 2  # forest.MISSING_NONE
 RULE_CATEGORY = 3  # forest.RULE_CATEGORY
+RULE_CATEGORY_TRUNCATED = 4  # forest.RULE_CATEGORY_TRUNCATED
 ZERO_AS_MISSING = 1.0000000180025095e-35  # forest.ZERO_AS_MISSING (LightGBM's float32 1e-35)
 
 
@@ -27,11 +28,13 @@ def goes_left(x, k, dec, strict):  # pragma: no cover - compiled
     """
     threshold, missing_left, rule, other_left, cat_ptr, cat_words, cat_bits = dec
     r = rule[k]
-    if r == RULE_CATEGORY:
+    if r >= RULE_CATEGORY:
         if np.isnan(x):
             return missing_left[k]
         w = cat_words[k]
-        if x < 0.0 or x >= 64.0 * w:
+        # A negative number is no category; LightGBM truncates first, so -0.5 reads as 0.
+        negative = x <= -1.0 if r == RULE_CATEGORY_TRUNCATED else x < 0.0
+        if negative or x >= 64.0 * w:
             return other_left[k]
         c = np.int64(x)
         word = c >> 6

@@ -58,9 +58,9 @@ class NoReference(Exception):
 
 def families() -> list[Family]:
     """Every family, in the order objects are tried."""
-    from . import sklearn_models, xgboost_models
+    from . import lightgbm_models, sklearn_models, xgboost_models
 
-    return [sklearn_models.FAMILY, xgboost_models.FAMILY]
+    return [sklearn_models.FAMILY, xgboost_models.FAMILY, lightgbm_models.FAMILY]
 
 
 def family_of(obj) -> Family | None:
