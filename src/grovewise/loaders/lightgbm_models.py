@@ -383,7 +383,11 @@ def read_lightgbm_text(p: Path):
     except UnicodeDecodeError:
         raise ModelFileError(f"{p}: not a text file; expected LightGBM's model text "
                              "(save_model).") from None
-    _header_and_trees(text, str(p))  # a clear message before LightGBM's own
+    # Read it ourselves first: LightGBM aborts the whole process on some damaged texts, so it
+    # only sees a text that parsed, and without the tree_sizes line (optional; LightGBM uses
+    # it to cut the text into trees, and a wrong one is one such abort).
+    forest_from_lightgbm_text(text, where=str(p))
+    text = re.sub(r"^tree_sizes=.*$", "", text, count=1, flags=re.M)
     try:
         return lightgbm.Booster(model_str=text)
     except (lightgbm.basic.LightGBMError, ValueError) as exc:

@@ -3,6 +3,25 @@
 The model is read from XGBoost's own JSON form of the booster. Trees keep the booster's
 order and node ids, so ``Forest.apply`` equals ``pred_leaf``. XGBoost compares in float32
 with ``<`` and sends a missing value the node's default direction; the Forest does the same.
+
+Categorical splits (``enable_categorical=True``; ``split_type`` 1 in the JSON, the node's
+categories in ``categories`` at ``categories_segments[i]``, ``categories_sizes[i]`` long, for
+node ``categories_nodes[i]``). XGBoost's rule, as its predictor decides (checked by
+experiment against ``pred_leaf`` in tests/test_categorical_models.py): NaN takes the default
+direction; a category in the node's set goes RIGHT; every other value goes LEFT: a category
+outside the set or beyond its stored bit field, and an invalid one (negative, or >= 2**24).
+A value with a fraction is truncated to its category (2.7 is category 2), as the Forest's
+walk does. So a split becomes ``CategorySplit(left=[], right=set, other_left=True)``.
+Partition splits and one-hot splits (``max_cat_to_onehot``) are stored alike: a one-hot
+split is a set of one category (its ``split_conditions`` entry is unused, 1e-45).
+
+Category names: XGBoost 3.1+ keeps a fitted DataFrame's categories in the model
+(``gradient_booster.model.cats``: per feature either ``offsets`` into the UTF-8 bytes of the
+names, or a numeric ``type`` and the ``values``), in code order; ``Forest.categories`` takes
+them from there. A model fitted on codes (``feature_types`` 'c' with an array) stores none;
+its categories are then named by their codes ("0", "1", ... up to the largest code a split
+uses). XGBoost writes non-ASCII names' bytes incompletely into the JSON (3.2: offsets count
+characters, not bytes), so such names are decoded with replacement characters.
 """
 
 from __future__ import annotations
@@ -13,7 +32,8 @@ import math
 import numpy as np
 
 from ..errors import ModelFileError, UnsupportedModelError
-from ..forest import COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, Forest, Tree, node_depths
+from ..forest import (COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, CategorySplit, Forest, Tree,
+                      node_depths)
 from .families import Family
 
 OBJECTIVES = ("binary:logistic", "multi:softprob", "multi:softmax")
@@ -31,6 +51,29 @@ def _parse_floats(text) -> np.ndarray:
     return np.array([float(v) for v in s.split(",") if v.strip()], dtype=np.float64)
 
 
+def _category_splits(t: dict, split_type: np.ndarray, leaf: np.ndarray) -> dict:
+    """The tree's categorical splits, node id -> CategorySplit (XGBoost's set goes right)."""
+    nodes = [int(k) for k in t.get("categories_nodes", [])]
+    begins = t.get("categories_segments", [])
+    sizes = t.get("categories_sizes", [])
+    cats = np.asarray(t.get("categories", []), dtype=np.int64)
+    if len(begins) != len(nodes) or len(sizes) != len(nodes):
+        raise ModelFileError("XGBoost: the tree's categories_nodes, categories_segments and "
+                             "categories_sizes differ in length; the model is damaged.")
+    sets = {k: cats[int(b):int(b) + int(n)] for k, b, n in zip(nodes, begins, sizes)}
+    empty = np.zeros(0, dtype=np.int64)
+    out = {}
+    for k in np.flatnonzero((split_type == 1) & ~leaf):
+        # A categorical node without a stored set (XGBoost never writes one) sends every
+        # category left, as XGBoost's loader leaves it an empty bit field.
+        right = np.unique(sets.get(int(k), empty))
+        if right.size and right[0] < 0:
+            raise ModelFileError("XGBoost: a categorical split holds a negative category; the "
+                                 "model is damaged.")
+        out[int(k)] = CategorySplit(left=empty, right=right, other_left=True)
+    return out
+
+
 def _convert_tree(t: dict, output: int) -> Tree:
     if int(t["tree_param"].get("size_leaf_vector", "1")) > 1:
         raise UnsupportedModelError("XGBoost: multi-target (vector-leaf) trees are not supported; "
@@ -39,13 +82,16 @@ def _convert_tree(t: dict, output: int) -> Tree:
     right = np.asarray(t["right_children"], dtype=np.int64)
     leaf = left < 0
     split_type = np.asarray(t.get("split_type", [0] * left.shape[0]), dtype=np.int64)
-    if np.any(split_type[~leaf] != 0):
-        raise UnsupportedModelError("XGBoost: categorical splits are not supported; retrain with "
-                                    "numeric (e.g. one-hot encoded) features.")
+    if np.any((split_type[~leaf] != 0) & (split_type[~leaf] != 1)):
+        raise UnsupportedModelError("XGBoost: a split type other than numeric (0) or categorical "
+                                    "(1) is not supported.")
+    categorical = _category_splits(t, split_type, leaf)
+    is_cat = np.zeros(left.shape[0], dtype=bool)
+    is_cat[list(categorical)] = True
     cond = np.asarray(t["split_conditions"], dtype=np.float32).astype(np.float64)
     return Tree(
         feature=np.where(leaf, -1, np.asarray(t["split_indices"], dtype=np.int64)),
-        threshold=np.where(leaf, 0.0, cond),
+        threshold=np.where(leaf | is_cat, 0.0, cond),
         left=left, right=right,
         missing_left=np.asarray(t["default_left"], dtype=bool) & ~leaf,
         value=np.where(leaf, cond, 0.0).reshape(-1, 1),
@@ -53,7 +99,47 @@ def _convert_tree(t: dict, output: int) -> Tree:
         gain=np.where(leaf, 0.0, np.asarray(t["loss_changes"], dtype=np.float64)),
         cover=np.asarray(t["sum_hessian"], dtype=np.float64),
         output=output,
+        categorical=categorical or None,
     )
+
+
+def _stored_category_names(gbtree: dict, n_features: int) -> dict:
+    """Category names per feature as XGBoost 3.1+ stores a fitted DataFrame's categories
+    (``cats``), in code order; {} when the model holds none."""
+    cats = gbtree.get("cats") or {}
+    enc, seg = cats.get("enc") or [], cats.get("feature_segments") or []
+    if len(enc) != n_features or len(seg) != n_features + 1:
+        return {}
+    names = {}
+    for j, col in enumerate(enc):
+        count = int(seg[j + 1]) - int(seg[j])
+        if count <= 0:
+            continue
+        values = col.get("values", [])
+        if "offsets" in col:  # strings: UTF-8 bytes (stored as int8) between offsets
+            off = [int(o) for o in col["offsets"]]
+            raw = bytes(int(v) & 0xFF for v in values)
+            found = [raw[off[i]:off[i + 1]].decode("utf-8", errors="replace")
+                     for i in range(len(off) - 1)]
+        else:  # integers (XGBoost refuses floating-point categories)
+            found = [str(int(v)) for v in values]
+        if len(found) == count:
+            names[j] = found
+    return names
+
+
+def _categories(learner: dict, gbtree: dict, trees: list[Tree], n_features: int) -> dict:
+    """``Forest.categories``: every feature typed 'c' or split on categorically."""
+    types = learner.get("feature_types") or []
+    largest = {j: -1 for j in range(min(len(types), n_features)) if types[j] == "c"}
+    for t in trees:
+        for k, split in (t.categorical or {}).items():
+            j = int(t.feature[k])
+            top = int(split.right.max()) if split.right.size else -1
+            largest[j] = max(largest.get(j, -1), top)
+    stored = _stored_category_names(gbtree, n_features)
+    return {j: stored.get(j) or [str(c) for c in range(top + 1)]
+            for j, top in sorted(largest.items())}
 
 
 def forest_from_xgboost_json(model: dict, *, classes=None, where: str = "the model") -> Forest:
@@ -108,6 +194,7 @@ def forest_from_xgboost_json(model: dict, *, classes=None, where: str = "the mod
     version = model.get("version", [])
     return Forest(trees=trees, classes_=labels, feature_names=names, has_feature_names=has,
                   kind="xgboost", link=link, compare=COMPARE_LT_FLOAT32, base_score=base,
+                  categories=_categories(learner, gbtree, trees, n_features),
                   source={"library": "xgboost", "version": ".".join(str(v) for v in version),
                           "objective": objective})
 
@@ -136,12 +223,23 @@ def forest_from_xgboost(obj) -> Forest:
 
 
 def xgboost_reference(native, X: np.ndarray, forest: Forest):
-    """XGBoost's own probabilities, classes and leaf ids (``pred_leaf``) on ``X``."""
+    """XGBoost's own probabilities, classes and leaf ids (``pred_leaf``) on ``X``.
+
+    Categorical features hold category codes (NaN for missing). They are handed to XGBoost
+    as an array typed 'c', which XGBoost reads as the codes themselves: only a DataFrame's
+    categories are re-coded by the names the model stores, so the codes mean what they mean
+    to the Forest (the tests check both against XGBoost's prediction on the original table).
+    """
     import xgboost
 
     booster = native.get_booster() if isinstance(native, xgboost.XGBModel) else native
     names = forest.feature_names if forest.has_feature_names else None
-    dm = xgboost.DMatrix(X, feature_names=names)
+    if forest.categories:
+        types = [("c" if forest.is_categorical(j) else "float") for j in range(forest.n_features)]
+        dm = xgboost.DMatrix(np.asarray(X, dtype=np.float64), feature_names=names,
+                             feature_types=types, enable_categorical=True)
+    else:
+        dm = xgboost.DMatrix(X, feature_names=names)
     best = booster.attr("best_iteration")
     upto = (0, int(best) + 1) if best is not None else (0, 0)  # as the Forest keeps them
     p = booster.predict(dm, iteration_range=upto)
