@@ -15,7 +15,7 @@ import numpy as np
 from scipy.special import expit
 
 from .errors import DataError
-from .traversal import leaf_nodes
+from .traversal import decide_many, leaf_nodes
 
 # How a split node compares a feature value with its threshold (the library's own rule).
 COMPARE_LE_FLOAT32 = "le_float32"  # scikit-learn trees: float32(x) <= threshold (float64)
@@ -72,7 +72,8 @@ class Tree:
 
     ``missing_rule`` (None: ``MISSING_NAN`` everywhere) says per node how a missing value is
     recognised; ``categorical`` maps a node to its :class:`CategorySplit` (its ``threshold``
-    is then unused).
+    is then unused). ``model_input`` (a pipeline's model only): the estimator's own input
+    column that each split tested before the preprocessing was folded into it.
     """
 
     feature: np.ndarray
@@ -87,6 +88,7 @@ class Tree:
     output: int = 0
     missing_rule: np.ndarray | None = None
     categorical: dict | None = None
+    model_input: np.ndarray | None = None
 
     @property
     def n_nodes(self) -> int:
@@ -155,6 +157,10 @@ class Forest:
     categories : dict
         For each categorical feature (by index), the category names in code order: code ``c``
         of feature ``j`` is ``categories[j][c]``. Empty for a model of numeric features only.
+    model_inputs : list of str or None
+        For a pipeline: the final estimator's own input columns (after the preprocessing),
+        and ``input_feature[i]`` the feature (raw column) input ``i`` is made from. None when
+        the features are the estimator's inputs.
     """
 
     trees: list[Tree]
@@ -167,6 +173,8 @@ class Forest:
     has_feature_names: bool = True
     source: dict = field(default_factory=dict)
     categories: dict = field(default_factory=dict)
+    model_inputs: list | None = None
+    input_feature: list | None = None
 
     def __post_init__(self) -> None:
         if self.link not in LINKS:
@@ -310,6 +318,14 @@ class Forest:
         Xc = np.ascontiguousarray(self.compare_input(X))
         return leaf_nodes(Xc, flat["feature"], self.decision_arrays, flat["left"], flat["right"],
                           flat["offsets"], self.compare == COMPARE_LT_FLOAT32)
+
+    def goes_left(self, nodes: np.ndarray, values: np.ndarray) -> np.ndarray:
+        """Whether value ``values[i]`` goes left at global node ``nodes[i]`` (the walk's own
+        rule, the comparison's float rounding included)."""
+        v = self.compare_input(np.asarray(values, dtype=np.float64).reshape(-1))
+        n = np.asarray(nodes, dtype=np.int64).reshape(-1)
+        return decide_many(np.ascontiguousarray(v), n, self.decision_arrays,
+                           self.compare == COMPARE_LT_FLOAT32)
 
     # ------------------------------------------------------------------ prediction
     def apply(self, X) -> np.ndarray:

@@ -82,3 +82,13 @@ def use_threads(jobs: int | None) -> int:
     n = cores if not jobs else max(1, min(int(jobs), cores))
     numba.set_num_threads(n)
     return n
+
+
+@numba.njit(cache=True, nogil=True)
+def decide_many(values, nodes, dec, strict):  # pragma: no cover - compiled
+    """``goes_left`` of ``values[i]`` at global node ``nodes[i]``, for every i (values already
+    in the comparison's float type)."""
+    out = np.empty(values.shape[0], dtype=np.bool_)
+    for i in range(values.shape[0]):
+        out[i] = goes_left(values[i], nodes[i], dec, strict)
+    return out

@@ -169,7 +169,7 @@ def load_data(path, forest=None, target: str | None = None) -> Dataset:
     extras = [c for c in candidates if c not in set(features)]
     if extras:
         notes.append(f"ignored {len(extras)} column(s) that are not features: {_names(extras)}")
-    X = _feature_matrix(table, features, p, no_model=forest is None)
+    X = _feature_matrix(table, features, p, no_model=forest is None, forest=forest)
     y = None if target is None else _target_values(table[target], forest, target, p)
     return Dataset(X=X, y=y, feature_names=names, source=str(path),
                    sha256=hashlib.sha256(raw).hexdigest(), extra_columns=extras,
@@ -276,10 +276,13 @@ def _match_by_position(forest, candidates: list[str], p: Path) -> list[str]:
 
 # ---------------------------------------------------------------------- values
 def _feature_matrix(table: pd.DataFrame, features: list[str], p: Path,
-                    no_model: bool = False) -> np.ndarray:
+                    no_model: bool = False, forest=None) -> np.ndarray:
     X = np.empty((table.shape[0], len(features)), dtype=np.float64)
     bad = []
     for j, name in enumerate(features):
+        if forest is not None and forest.is_categorical(j):
+            X[:, j] = _column_as_codes(table[name], forest.categories[j], name, p)
+            continue
         col, problem = _column_as_float(table[name])
         if problem is not None:
             bad.append(f"{name!r} (first bad value {problem[1]!r} in data row {problem[0] + 1})")
@@ -311,6 +314,55 @@ def _column_as_float(col: pd.Series) -> tuple[np.ndarray | None, tuple[int, obje
             return None, (i, _plain(v))
         out[i] = x
     return out, None
+
+
+def _category_key(v) -> str | None:
+    """A cell as the text of a category name ("2" for 2 and 2.0), None when empty."""
+    if v is None or v is pd.NA or v is pd.NaT or (isinstance(v, float) and math.isnan(v)):
+        return None
+    if isinstance(v, (bool, np.bool_)):
+        return str(bool(v))
+    if isinstance(v, (int, float, np.integer, np.floating)):
+        f = float(v)
+        return str(int(f)) if f.is_integer() else repr(f)
+    text = str(v).strip()
+    return text or None
+
+
+def _column_as_codes(col: pd.Series, names: list[str], column: str, p: Path) -> np.ndarray:
+    """A categorical feature's cells as the model's category codes (NaN when empty).
+
+    Cells are matched to the category names as text (2, 2.0 and "2" are one name). When the
+    model knows its categories only as codes (names "0", "1", ...), a whole number >= 0 beyond
+    them is kept as a code, which the model sends its "other" way as its library does.
+    """
+    codes, uniques = pd.factorize(col.astype(object), sort=False, use_na_sentinel=True)
+    index = {n: c for c, n in enumerate(names)}
+    plain_codes = names == [str(c) for c in range(len(names))]
+    mapped, unknown = np.empty(len(uniques)), []
+    for u, value in enumerate(uniques):
+        key = _category_key(value)
+        if key is None:
+            mapped[u] = np.nan
+        elif key in index:
+            mapped[u] = index[key]
+        elif plain_codes and key.isdigit():
+            mapped[u] = float(key)
+        else:
+            mapped[u] = np.nan
+            unknown.append((u, _plain(value)))
+    if unknown:
+        rows = [int(np.flatnonzero(codes == u)[0]) + 1 for u, _ in unknown[:3]]
+        shown = ", ".join(f"{v!r} (data row {r})" for (_, v), r in zip(unknown, rows))
+        more = f" and {len(unknown) - 3} more" if len(unknown) > 3 else ""
+        raise DataError(f"{p}: the categorical column {column!r} holds value(s) the model does "
+                        f"not know: {shown}{more}; it knows {_names(names)}. Fix those cells, "
+                        "empty them (a missing value), or check that the file is the one the "
+                        "model was meant for.")
+    out = np.full(col.shape[0], np.nan)
+    seen = codes >= 0
+    out[seen] = mapped[codes[seen]]
+    return out
 
 
 def _cell_as_float(v) -> float | None:
