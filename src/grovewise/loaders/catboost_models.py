@@ -18,7 +18,7 @@ where the feature's ``nan_value_treatment`` says: ``AsFalse`` (trained with nan_
 Leaf values are multiplied by the model's scale; its bias is the Forest's ``base_score``.
 A multi-class tree (``leaf_values`` leaf by leaf, one value per class) becomes one Tree per
 class, class by class. Categorical, text and embedding features, non-symmetric trees and
-losses other than Logloss, CrossEntropy and MultiClass are refused.
+losses other than Logloss, CrossEntropy, Focal and MultiClass are refused.
 """
 
 from __future__ import annotations
@@ -44,8 +44,8 @@ CLASSIFIER_LOSSES = frozenset(LOSS_LINKS) | {"MultiClassOneVsAll"}
 # Where a missing value goes, per feature's nan_value_treatment: True = left.
 NAN_LEFT = {"AsIs": True, "AsFalse": True, "AsTrue": False}
 INSTALL = 'pip install "grovewise[catboost]"'
-RETRAIN_NUMERIC = ("encode it as numbers (for example one-hot columns) and retrain, or leave it "
-                   "out of the model")
+RETRAIN_NUMERIC = ("turn it into numeric columns before training (for example one-hot columns "
+                   "for a categorical feature) and retrain, or leave it out of the model")
 
 
 def _loss_name(text) -> str:
@@ -233,9 +233,10 @@ def forest_from_catboost_json(doc: dict, *, classes=None, where: str = "the mode
     for f in info.get("float_features") or []:
         treatment = str(f.get("nan_value_treatment", "AsIs"))
         if treatment not in NAN_LEFT:
-            raise UnsupportedModelError(f"{where}: feature {f.get('feature_id') or f.get('feature_index')!r} "
-                                        f"has nan_value_treatment {treatment!r}, which Grovewise "
-                                        "does not know; retrain with nan_mode 'Min' or 'Max'.")
+            name = f.get("feature_id") or f"column {f.get('flat_feature_index')}"
+            raise UnsupportedModelError(f"{where}: feature {name!r} has nan_value_treatment "
+                                        f"{treatment!r}, which Grovewise does not know; retrain "
+                                        "with nan_mode 'Min' or 'Max'.")
         col = int(f.get("flat_feature_index", f["feature_index"]))
         features[int(f["feature_index"])] = (col, NAN_LEFT[treatment])
         names_by_col[col] = str(f.get("feature_id") or "")
@@ -258,7 +259,8 @@ def forest_from_catboost_json(doc: dict, *, classes=None, where: str = "the mode
         dims, n_classes = 1, 2
     else:
         first = trees_json[0] if trees_json else {}
-        dims = _floats(first.get("leaf_values", [])).shape[0] // (1 << len(first.get("splits") or []))
+        leaves = 1 << len(first.get("splits") or [])
+        dims = _floats(first.get("leaf_values", [])).shape[0] // leaves
         dims = dims or max(len(labels), bias.shape[0])
         n_classes = dims
     if bias.shape[0] == 1 and dims > 1:
@@ -359,7 +361,8 @@ def read_catboost_file(p: Path):
         raise ModelFileError(f"{p}: CatBoost could not read this file ({_message(exc)}); it "
                              "may be damaged or truncated; save the model again with "
                              "save_model.") from None
-    forest_from_catboost_json(_export_json(model, where), where=where)  # the refusals, naming the file
+    # The refusals, with messages naming the file.
+    forest_from_catboost_json(_export_json(model, where), where=where)
     return model
 
 

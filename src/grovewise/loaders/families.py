@@ -58,10 +58,10 @@ class NoReference(Exception):
 
 def families() -> list[Family]:
     """Every family, in the order objects are tried."""
-    from . import catboost_models, lightgbm_models, sklearn_models, xgboost_models
+    from . import catboost_models, lightgbm_models, onnx_models, pipelines, sklearn_models, xgboost_models
 
-    return [sklearn_models.FAMILY, xgboost_models.FAMILY, lightgbm_models.FAMILY,
-            catboost_models.FAMILY]
+    return [pipelines.FAMILY, sklearn_models.FAMILY, xgboost_models.FAMILY, lightgbm_models.FAMILY,
+            catboost_models.FAMILY, onnx_models.FAMILY]
 
 
 def family_of(obj) -> Family | None:

@@ -132,13 +132,14 @@ def _load_json(p: Path):
         from .lightgbm_models import read_lightgbm_dump
 
         return read_lightgbm_dump(doc, p)
-    if isinstance(doc, dict) and "oblivious_trees" in doc:
+    if isinstance(doc, dict) and ("oblivious_trees" in doc
+                                  or ("trees" in doc and "features_info" in doc)):
         from .catboost_models import read_catboost_json
 
         return read_catboost_json(doc, p)
     raise ModelFileError(f"{p}: JSON, but not a model Grovewise knows (no 'learner' entry as "
                          "in XGBoost's save_model, no 'tree_info' as in LightGBM's dump_model, "
-                         "no 'oblivious_trees' as in CatBoost's JSON export).")
+                         "no 'oblivious_trees' or 'features_info' as in CatBoost's JSON export).")
 
 
 def _load_xgboost(p: Path):
