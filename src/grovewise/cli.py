@@ -424,8 +424,9 @@ def _parse_flags(items) -> dict[str, str]:
 
 
 def _add_model_args(p: argparse.ArgumentParser, data: str | None = "optional") -> None:
-    p.add_argument("model", metavar="MODEL", help="model file (.json, .ubj, .skops; "
-                   ".pkl/.joblib only with --trust)")
+    p.add_argument("model", metavar="MODEL", help="model file: XGBoost .json/.ubj, LightGBM "
+                   ".txt or dump .json, CatBoost .cbm/.json, ONNX .onnx, scikit-learn model or "
+                   "pipeline .skops; .pkl/.joblib only with --trust")
     if data == "optional":
         p.add_argument("data", metavar="DATA", nargs="?", help="review data (CSV or Parquet)")
     elif data == "required":

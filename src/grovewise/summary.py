@@ -6,6 +6,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from .analysis.usage import input_usage
 from .forest import Forest
 
 KIND_NAMES = {
@@ -15,6 +16,9 @@ KIND_NAMES = {
     "gradient_boosting": "gradient boosting",
     "hist_gradient_boosting": "histogram gradient boosting",
     "xgboost": "XGBoost gradient boosting",
+    "lightgbm": "LightGBM gradient boosting",
+    "catboost": "CatBoost gradient boosting (symmetric trees)",
+    "onnx": "ONNX tree ensemble",
 }
 
 
@@ -36,6 +40,10 @@ class ModelSummary:
     has_feature_names: bool
     rows: int | None = None
     predicted_counts: dict = field(default_factory=dict)
+    estimator: str = ""
+    categorical: dict = field(default_factory=dict)  # feature -> number of categories
+    categorical_splits: int = 0
+    input_usage: list | None = None  # a pipeline's estimator inputs and their split counts
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -50,8 +58,21 @@ class ModelSummary:
             + ("" if self.has_feature_names else " (the model has no feature names: "
                "data columns are matched by position)"),
         ]
+        if self.estimator:
+            lines.insert(1, f"Estimator  {self.estimator}")
         if self.features_never_used:
             lines.append(f"Never used {', '.join(self.features_never_used)}")
+        if self.categorical:
+            cats = ", ".join(f"{n} ({k} categories)" for n, k in self.categorical.items())
+            lines.append(f"Categories {cats}; {self.categorical_splits} splits send sets of "
+                         "categories")
+        if self.input_usage:
+            used = [u for u in self.input_usage if u["splits"]]
+            shown = ", ".join(f"{u['input']} -> {u['column']}: {u['splits']}"
+                              for u in sorted(used, key=lambda u: -u["splits"])[:8])
+            more = f", and {len(used) - 8} more" if len(used) > 8 else ""
+            lines.append(f"Inputs     the pipeline makes {len(self.input_usage)} estimator "
+                         f"inputs from the raw columns; splits per input: {shown}{more}")
         if self.rows is not None:
             total = max(self.rows, 1)
             parts = [f"{c}: {n} ({100.0 * n / total:.1f}%)" for c, n in self.predicted_counts.items()]
@@ -78,6 +99,10 @@ def summarize(forest: Forest, X: np.ndarray | None = None, *,
         features_used=[names[j] for j in used],
         features_never_used=[n for j, n in enumerate(names) if j not in set(used.tolist())],
         has_feature_names=forest.has_feature_names,
+        estimator=str(forest.source.get("estimator", "")),
+        categorical={names[j]: len(c) for j, c in sorted(forest.categories.items())},
+        categorical_splits=forest.n_categorical_splits,
+        input_usage=input_usage(forest),
     )
     if X is not None:
         pred = forest.predict_index(X) if predicted is None else predicted

@@ -8,7 +8,9 @@ from pathlib import Path
 from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QGridLayout, QHBoxLayout, QLabel, QPushButton, QVBoxLayout, QFrame
 
-from ...loaders.model_files import PICKLE_SUFFIXES, SKOPS_SUFFIXES, XGBOOST_SUFFIXES
+from ...loaders.model_files import (CATBOOST_SUFFIXES, JSON_SUFFIXES, LIGHTGBM_SUFFIXES,
+                                    ONNX_SUFFIXES, PICKLE_SUFFIXES, SKOPS_SUFFIXES,
+                                    XGBOOST_SUFFIXES)
 from ...summary import KIND_NAMES
 from ..widgets import Card, KeyValues, Verdict, wrapped
 from .base import Page
@@ -20,6 +22,17 @@ def safety_verdict(model: Path, trusted: bool) -> tuple[str, str]:
     if suffix in XGBOOST_SUFFIXES:
         return "good", ("XGBoost's own model format: read by XGBoost as data; no code in the "
                         "file runs.")
+    if suffix in JSON_SUFFIXES:
+        return "good", ("a JSON model (XGBoost, LightGBM's dump or CatBoost's export): read as "
+                        "data; no code in the file runs.")
+    if suffix in LIGHTGBM_SUFFIXES:
+        return "good", ("LightGBM's model text: parsed by Grovewise first, then read by "
+                        "LightGBM as data; no code in the file runs.")
+    if suffix in CATBOOST_SUFFIXES:
+        return "good", "CatBoost's model format: read by CatBoost as data; no code runs."
+    if suffix in ONNX_SUFFIXES:
+        return "good", ("an ONNX model: a graph of standard operators, read as data; no code "
+                        "in the file runs.")
     if suffix in SKOPS_SUFFIXES:
         if trusted:
             return "neutral", ("skops file opened as trusted: types outside the expected set "
@@ -95,7 +108,9 @@ class IntakePage(Page):
         head = QLabel("Open a trained ensemble and the data it is reviewed on")
         head.setStyleSheet("font-size: 16px; font-weight: 600;")
         lay.addWidget(head)
-        lay.addWidget(wrapped("Drop a model file (.json, .ubj, .skops; .pkl or .joblib only if "
+        lay.addWidget(wrapped("Drop a model file (XGBoost .json or .ubj, LightGBM .txt or "
+                              ".json, CatBoost .cbm or .json, ONNX .onnx, scikit-learn models "
+                              "and pipelines as .skops; .pkl or .joblib only if "
                               "you trust it) and a data file (.csv, .parquet) anywhere on this "
                               "window, or drop the folder of a saved review.", muted=True))
         row = QHBoxLayout()
