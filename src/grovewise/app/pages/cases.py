@@ -81,6 +81,17 @@ class Column:
         return np.where(np.isnan(v), -np.inf, v)
 
 
+def category_column(forest, j: int, name: str, codes: np.ndarray) -> Column:
+    """A categorical feature's column: its category names (one text per code, no per-row
+    Python), "missing" for an empty cell and "other" for a code the model does not name."""
+    names = list(forest.categories[j])
+    k = len(names)
+    valid = ~np.isnan(codes) & (codes >= 0) & (codes < k)
+    values = np.where(np.isnan(codes), k, k + 1).astype(np.int64)
+    values[valid] = codes[valid].astype(np.int64)
+    return Column(name, "text", values, names + ["missing", "other"])
+
+
 class CasesModel(QAbstractTableModel):
     """The Cases result as a table: identifiers, answers, then the feature values.
 
@@ -121,7 +132,9 @@ class CasesModel(QAbstractTableModel):
                  Column("greedy", "text", c.greedy, cls)]
         if y is not None:
             cols.append(Column("label", "text", *coded(y)))
-        cols += [Column(name, "float", X[:, j]) for j, name in enumerate(review.data.feature_names)]
+        cols += [category_column(review.forest, j, name, X[:, j])
+                 if review.forest.is_categorical(j) else Column(name, "float", X[:, j])
+                 for j, name in enumerate(review.data.feature_names)]
         self.cols, self.X, self._keys = cols, X, {}
         self.headers = [col.name for col in cols]
         self.kinds = [col.kind for col in cols]
