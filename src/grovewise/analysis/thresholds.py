@@ -7,6 +7,11 @@ empirical CDF of the data at the cut. A cut that sends every observed value the 
 (share 0 or 1) lies outside the observed range: the data never tests it. An infinite cut
 (scikit-learn writes one when a split separates missing values from all others) is marked
 as such and not placed.
+
+A categorical feature has no cut points: its splits send sets of categories each way. Its
+profile lists the distinct sets with their counts and, per category, how many of the
+feature's splits send that category left (``category_sets``, ``left_counts``), in the
+categories' names.
 """
 
 from __future__ import annotations
@@ -47,6 +52,16 @@ class FeatureCuts:
     data_summary : dict
         ``min``, ``q25``, ``median``, ``q75``, ``max`` of the observed values (empty without
         data or when every value is missing).
+    categories : list of str
+        A categorical feature's category names in code order (empty for a numeric feature,
+        whose ``cuts`` then hold everything).
+    category_sets : list of dict
+        A categorical feature's distinct splits, most used first: ``left`` and ``right`` (the
+        category names each side), ``other_left`` (where any other category goes),
+        ``count`` (split nodes) and ``share_left`` (share of the observed review values sent
+        left, None without data).
+    left_counts : ndarray of int
+        Per category, the feature's split nodes that send it left.
     """
 
     feature: str
@@ -58,6 +73,13 @@ class FeatureCuts:
     n_observed: int = 0
     n_missing: int = 0
     data_summary: dict = field(default_factory=dict)
+    categories: list = field(default_factory=list)
+    category_sets: list = field(default_factory=list)
+    left_counts: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    @property
+    def is_categorical(self) -> bool:
+        return bool(self.categories)
 
     @property
     def outside(self) -> np.ndarray:
@@ -76,10 +98,12 @@ class FeatureCuts:
 
     @property
     def n_splits(self) -> int:
-        return int(self.counts.sum())
+        return int(self.counts.sum()) + sum(int(s["count"]) for s in self.category_sets)
 
     def to_dict(self) -> dict:
         return {"feature": self.feature, "index": self.index, "cuts": self.cuts.tolist(),
+                "categories": list(self.categories), "category_sets": list(self.category_sets),
+                "left_counts": self.left_counts.tolist(),
                 "counts": self.counts.tolist(),
                 "quantiles": [None if np.isnan(q) else float(q) for q in self.quantiles],
                 "side": self.side.tolist(), "outside": self.outside.tolist(),
@@ -128,18 +152,34 @@ class ThresholdProfiles:
                 "n_rows": self.n_rows, "features": [f.to_dict() for f in self.features]}
 
     def to_rows(self) -> list[dict]:
-        """One row per (feature, cut) for a CSV table."""
-        return [{"feature": f.feature, "cut": float(c), "splits": int(n),
+        """One row per (feature, cut) for a CSV table; a categorical feature's sets as text."""
+        rows = [{"feature": f.feature, "cut": float(c), "splits": int(n),
                  "quantile": "" if np.isnan(q) else float(q),
                  "outside_range": {BELOW: "below", ABOVE: "above"}.get(int(s), ""),
                  "missing_only": int(s) == MISSING_ONLY}
                 for f in self.features
                 for c, n, q, s in zip(f.cuts, f.counts, f.quantiles, f.side)]
+        rows += [{"feature": f.feature, "cut": set_text(s), "splits": int(s["count"]),
+                  "quantile": "" if s["share_left"] is None else float(s["share_left"]),
+                  "outside_range": "", "missing_only": False}
+                 for f in self.features for s in f.category_sets]
+        return rows
+
+
+def set_text(split: dict, at_most: int = 6) -> str:
+    """A categorical split in words: ``in {a, b} (left) | {c} (right)``."""
+    def names(side: list[str]) -> str:
+        shown = ", ".join(side[:at_most])
+        return "{" + shown + (f", … {len(side) - at_most} more" if len(side) > at_most else "") + "}"
+    other = "others left" if split["other_left"] else "others right"
+    return f"{names(split['left'])} left | {names(split['right'])} right; {other}"
 
 
 def _distinct_cuts(forest: Forest) -> list[tuple[np.ndarray, np.ndarray]]:
-    """(cuts, counts) per feature, from all split nodes at once."""
+    """(cuts, counts) per feature, from all numeric split nodes at once."""
     nodes = split_nodes(forest)
+    numeric = ~nodes.categorical
+    nodes = type(nodes)(**{k: getattr(nodes, k)[numeric] for k in nodes.__dataclass_fields__})
     order = np.lexsort((nodes.threshold, nodes.feature))
     feat, thr = nodes.feature[order], nodes.threshold[order]
     new = np.ones(feat.shape[0], dtype=bool)
@@ -152,6 +192,37 @@ def _distinct_cuts(forest: Forest) -> list[tuple[np.ndarray, np.ndarray]]:
         sel = u_feat == j
         out.append((u_thr[sel], counts[sel].astype(np.int64)))
     return out
+
+
+def _category_sets(forest: Forest, j: int, codes: np.ndarray | None):
+    """The distinct splits on categorical feature ``j`` (most used first) and, per category,
+    the splits that send it left."""
+    names = forest.categories[j]
+    found: dict = {}
+    for t in forest.trees:
+        for k, split in (t.categorical or {}).items():
+            if t.feature[k] != j:
+                continue
+            key = (tuple(int(c) for c in split.left), tuple(int(c) for c in split.right),
+                   bool(split.other_left))
+            found[key] = found.get(key, 0) + 1
+    left_counts = np.zeros(len(names), dtype=np.int64)
+    sets = []
+    observed = None if codes is None else codes[~np.isnan(codes)]
+    for (left, right, other), count in sorted(found.items(), key=lambda kv: -kv[1]):
+        in_range = [c for c in left if c < len(names)]
+        left_counts[in_range] += count
+        if other:
+            mentioned = set(left) | set(right)
+            left_counts[[c for c in range(len(names)) if c not in mentioned]] += count
+        share = None
+        if observed is not None and observed.size:
+            goes = np.isin(observed, left) | (other & ~np.isin(observed, right))
+            share = float(goes.mean())
+        sets.append({"left": [forest.category_name(j, c) for c in left],
+                     "right": [forest.category_name(j, c) for c in right],
+                     "other_left": other, "count": int(count), "share_left": share})
+    return sets, left_counts
 
 
 def _summary(values: np.ndarray) -> dict:
@@ -183,6 +254,17 @@ def threshold_profiles(forest: Forest, X=None) -> ThresholdProfiles:
     features = []
     for j, (cuts, counts) in enumerate(per_feature):
         name = forest.feature_names[j]
+        if forest.is_categorical(j):
+            codes = None if Xr is None else Xr[:, j]
+            sets, left_counts = _category_sets(forest, j, codes)
+            n_obs = 0 if codes is None else int(np.count_nonzero(~np.isnan(codes)))
+            features.append(FeatureCuts(
+                name, j, cuts, counts, np.full(cuts.shape, np.nan),
+                np.full(cuts.shape, INSIDE, dtype=np.int64), n_obs,
+                0 if codes is None else int(codes.shape[0] - n_obs), {},
+                categories=list(forest.categories[j]), category_sets=sets,
+                left_counts=left_counts))
+            continue
         infinite = ~np.isfinite(cuts)
         if Xc is None:
             features.append(FeatureCuts(name, j, cuts, counts, np.full(cuts.shape, np.nan),

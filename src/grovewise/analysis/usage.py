@@ -47,6 +47,8 @@ class SplitNodes:
     gain: np.ndarray
     cover: np.ndarray
     output: np.ndarray
+    categorical: np.ndarray  # True where the node splits a categorical feature by sets
+    model_input: np.ndarray  # a pipeline's estimator input the split tested (else the feature)
 
 
 def check_weight(weight: str) -> str:
@@ -72,7 +74,23 @@ def split_nodes(forest: Forest) -> SplitNodes:
         depth=cat("depth", np.int64), gain=cat("gain", np.float64),
         cover=cat("cover", np.float64),
         output=np.repeat(np.array([t.output for t in trees], dtype=np.int64), sizes),
+        categorical=np.concatenate([np.isin(k, list((t.categorical or {}).keys()))
+                                    for t, k in zip(trees, keep)]).astype(bool),
+        model_input=np.concatenate([(t.model_input if t.model_input is not None
+                                     else t.feature)[k] for t, k in zip(trees, keep)]
+                                   ).astype(np.int64),
     )
+
+
+def input_usage(forest: Forest) -> list[dict] | None:
+    """For a pipeline's model: split nodes per estimator input, beside the raw column each
+    input is made from (the one-hot columns of ``region`` each get a row, and all count for
+    ``region`` in every other view). None for a model whose inputs are its features."""
+    if forest.model_inputs is None:
+        return None
+    counts = np.bincount(split_nodes(forest).model_input, minlength=len(forest.model_inputs))
+    return [{"input": name, "column": forest.feature_names[forest.input_feature[i]],
+             "splits": int(counts[i])} for i, name in enumerate(forest.model_inputs)]
 
 
 def tree_top_positions(tree: Tree, max_depth: int) -> tuple[np.ndarray, np.ndarray]:

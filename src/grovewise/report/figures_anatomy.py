@@ -373,16 +373,22 @@ def threshold_strips_figure(profiles: ThresholdProfiles, features: Sequence[str]
     number. Without data each strip uses the feature's own values.
     """
     chosen = _strip_features(profiles, features, max_features)
+    # categorical features first: their strips name their categories, not positions
+    chosen = [f for f in chosen if f.is_categorical] + [f for f in chosen if not f.is_categorical]
     n = max(len(chosen), 1)
     labels = [flag_label(f.feature, flags, 26) for f in chosen]
-    fig = new_figure(_label_inches(labels) + 7.8, 0.62 * n + 2.2)
-    gs = fig.add_gridspec(n, 1, hspace=0.0)
-    axes = []
+    n_cat = sum(f.is_categorical for f in chosen)
+    fig = new_figure(_label_inches(labels) + 7.8, 0.62 * n + 0.25 * n_cat + 2.2)
+    gs = fig.add_gridspec(n, 1, hspace=0.55 if n_cat else 0.0)
+    axes, numeric = [], []
     for r, fc in enumerate(chosen):
-        ax = fig.add_subplot(gs[r, 0], sharex=axes[0] if axes and profiles.has_data else None,
-                             label=f"strip {fc.feature}")
+        share = numeric[0] if numeric and profiles.has_data and not fc.is_categorical else None
+        ax = fig.add_subplot(gs[r, 0], sharex=share, label=f"strip {fc.feature}")
         axes.append(ax)
+        if not fc.is_categorical:
+            numeric.append(ax)
         _one_strip(ax, fc, labels[r], profiles.has_data, bins, flags)
+    axes = numeric
     if axes and profiles.has_data:
         for ax in axes[:-1]:
             ax.tick_params(labelbottom=False)
@@ -409,9 +415,30 @@ def threshold_strips_figure(profiles: ThresholdProfiles, features: Sequence[str]
     return fig
 
 
+def _category_strip(ax, fc, colour) -> None:
+    """A categorical feature: per category, the share of the feature's splits sending it left
+    (categories in code order, at most 16 named)."""
+    n = max(fc.n_splits, 1)
+    shown = np.arange(len(fc.categories))
+    if shown.size > 16:
+        shown = np.sort(np.argsort(-fc.left_counts, kind="stable")[:16])
+    x = (np.arange(shown.size) + 0.5) / max(shown.size, 1)
+    width = 0.8 / max(shown.size, 1)
+    ax.bar(x, fc.left_counts[shown] / n, width=width, color=colour, linewidth=0, zorder=2)
+    ax.set_xticks(x)
+    ax.set_xticklabels([fc.categories[c][:12] for c in shown], fontsize=6.5)
+    ax.set_xlim(-0.07, 1.07)
+
+
 def _one_strip(ax, fc, label: str, has_data: bool, bins: int, flags) -> None:
     kind = (flags or {}).get(fc.feature)
     colour = FLAG_STYLE[kind][1] if kind else ACCENT
+    if fc.is_categorical:
+        _category_strip(ax, fc, colour)
+        _strip_frame(ax, fc, label, kind, colour,
+                     f"  {fc.n_splits} splits, {len(fc.category_sets)} sets\n"
+                     "  bar: share of splits\n  sending it left")
+        return
     inside = fc.placed
     if has_data:
         ax.axvspan(0, 1, color="#f3f4f6", zorder=0)
@@ -431,13 +458,17 @@ def _one_strip(ax, fc, label: str, has_data: bool, bins: int, flags) -> None:
             ax.axvline(q, color="white", linewidth=0.8, zorder=1)
         _summary_labels(ax, fc)
         ax.set_xlim(-0.07, 1.07)
+    info = f"  {fc.n_splits} splits\n  {fc.cuts.shape[0]} cuts"
+    if fc.n_missing_only:
+        info += f"\n  {fc.n_missing_only} missing-only"
+    _strip_frame(ax, fc, label, kind, colour, info)
+
+
+def _strip_frame(ax, fc, label: str, kind, colour, info: str) -> None:
     ax.set_ylim(0, 1.25)
     ax.set_yticks([])
     ax.set_ylabel(label, rotation=0, ha="right", va="center", fontsize=9,
                   color=colour if kind else INK, fontweight="bold" if kind else "normal")
-    info = f"  {fc.n_splits} splits\n  {fc.cuts.shape[0]} cuts"
-    if fc.n_missing_only:
-        info += f"\n  {fc.n_missing_only} missing-only"
     ax.text(1.0, 0.5, info, transform=ax.transAxes, fontsize=7, color=MUTED, va="center",
             ha="left")
     for s in ("top", "right", "left"):
