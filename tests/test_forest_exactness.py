@@ -172,18 +172,3 @@ def test_unsupported_variants_are_refused():
         gw.from_estimator(LogisticRegression())
     with pytest.raises(gw.UnsupportedModelError, match="not fitted"):
         gw.from_estimator(RandomForestClassifier())
-
-
-def test_categorical_splits_are_refused():
-    import pandas as pd
-
-    rng = np.random.default_rng(0)
-    frame = pd.DataFrame({"colour": pd.Categorical(rng.choice(["r", "g", "b"], 300)),
-                          "size": rng.normal(size=300)})
-    target = (frame["colour"] == "r").astype(int) ^ (frame["size"] > 1)
-    hgb = HistGradientBoostingClassifier(max_iter=5, categorical_features="from_dtype").fit(frame, target)
-    with pytest.raises(gw.UnsupportedModelError, match="categorical"):
-        gw.from_estimator(hgb)
-    model = xgb.XGBClassifier(n_estimators=3, enable_categorical=True, tree_method="hist").fit(frame, target)
-    with pytest.raises(gw.UnsupportedModelError, match="categorical"):
-        gw.from_estimator(model)

@@ -45,6 +45,9 @@ SKOPS_ALLOWED = frozenset({
     "numpy.dtype",
     "numpy.random.mtrand.RandomState",
     "builtins.object",
+    # histogram boosting with categorical features keeps its fitted encoder's check function
+    "functools.partial",
+    "sklearn.utils.validation.check_array",
 })
 
 EXPECTED = ("an XGBoost model (.json or .ubj), a LightGBM model (its model text .txt, or "

@@ -200,8 +200,29 @@ def _intake(doc: Document, review) -> None:
     if rows:
         doc.add(Table(["feature", "missing values"], rows,
                       caption="Missing values in the review data"))
+    _model_inputs(doc, intake.summary)
     for note in notes:
         doc.add(Paragraph(note, "note"))
+
+
+def _model_inputs(doc: Document, summary) -> None:
+    """Categorical features, and a pipeline's estimator inputs with their raw columns."""
+    cats = getattr(summary, "categorical", None) or {}
+    if cats:
+        doc.add(Paragraph(
+            f"Categorical features: {', '.join(f'{n} ({k} categories)' for n, k in cats.items())}"
+            f". {summary.categorical_splits:,} of the model's splits send sets of categories "
+            "each way; the review names categories, never their codes.", "note"))
+    inputs = getattr(summary, "input_usage", None)
+    if inputs:
+        doc.add(Paragraph(
+            f"The model is a pipeline ({summary.estimator}). Its preprocessing was folded into "
+            "the splits exactly, so the review speaks in the data file's raw columns; the "
+            "estimator's own inputs and the splits on each are below (every other figure "
+            "counts them for their raw column).", "note"))
+        doc.add(Table(["estimator input", "raw column", "splits"],
+                      [[u["input"], u["column"], u["splits"]] for u in inputs],
+                      caption="Splits per estimator input of the pipeline"))
 
 
 def sample_rows(review) -> list[list[str]]:
