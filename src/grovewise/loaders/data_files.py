@@ -13,6 +13,7 @@ import difflib
 import hashlib
 import io
 import math
+import re
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -157,7 +158,10 @@ def load_data(path, forest=None, target: str | None = None) -> Dataset:
     elif forest.has_feature_names:
         features, names, matched_by = _match_by_name(forest, candidates, target, p), \
             list(forest.feature_names), MATCH_BY_NAME
-        notes = []
+        renamed = [f"{c!r} as {n!r}" for c, n in zip(features, names) if c != n]
+        notes = [f"matched {len(renamed)} column(s) to the model's names with spaces read as "
+                 f"underscores, as LightGBM stores names: {_names(renamed, quote=False)}"
+                 ] if renamed else []
     else:
         features, names, matched_by = _match_by_position(forest, candidates, p), \
             list(forest.feature_names), MATCH_BY_POSITION
@@ -256,11 +260,25 @@ def _match_by_name(forest, candidates: list[str], target: str | None, p: Path) -
     present = set(candidates)
     missing = [f for f in forest.feature_names if f not in present]
     if missing:
+        renamed = _underscored(candidates)
+        if all(renamed.get(f) for f in missing):
+            # LightGBM stores a name's spaces as underscores: the file keeps the user's own
+            return [f if f in present else renamed[f] for f in forest.feature_names]
         raise DataError(f"{p}: {len(missing)} of the model's {forest.n_features} feature "
                         f"column(s) are missing: {_names(missing)}"
                         f"{_close_hint(missing, candidates)}{_separator_hint(candidates)}. "
                         "Give a file with a column for each feature, named as in the model.")
     return list(forest.feature_names)
+
+
+def _underscored(columns: list[str]) -> dict[str, str]:
+    """The file's columns by their names with every run of white space written as one
+    underscore each (as LightGBM stores feature names), where that name is unique."""
+    out: dict[str, str | None] = {}
+    for c in columns:
+        key = re.sub(r"\s", "_", c)
+        out[key] = None if key in out else c
+    return {k: v for k, v in out.items() if v is not None}
 
 
 def _match_by_position(forest, candidates: list[str], p: Path) -> list[str]:

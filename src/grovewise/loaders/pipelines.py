@@ -354,8 +354,18 @@ def forest_from_pipeline(pipe) -> Forest:
                   source={**inner.source, "estimator": f"Pipeline({steps})",
                           "final_estimator": inner.source.get("estimator"),
                           "final_compare": inner.compare},
-                  model_inputs=list(inner.feature_names),
+                  model_inputs=_input_names(pipe, inner),
                   input_feature=[s.raw for s in layout.sources])
+
+
+def _input_names(pipe, inner: Forest) -> list[str]:
+    """The estimator's input names: the preprocessing's own (``region_north``), else the
+    estimator's."""
+    try:
+        names = [str(n) for n in pipe[:-1].get_feature_names_out()]
+    except (AttributeError, ValueError, TypeError):
+        return list(inner.feature_names)
+    return names if len(names) == inner.n_features else list(inner.feature_names)
 
 
 def _fold_tree(tree: Tree, offset: int, folded: dict, layout: _Layout) -> Tree:
