@@ -8,6 +8,8 @@ from .analysis import (depth_usage, impurity_importance, position_usage, proximi
                        proximity_pairs)
 from .analysis.contributions import (Contributions, contributions, interaction_ranking,
                                      interactions)
+from .analysis.effects import (AccumulatedEffects, PartialDependence, accumulated_local_effects,
+                               partial_dependence)
 from .errors import (CancelledError, DataError, GrovewiseError, ModelFileError, SettingError,
                      UnsafeModelError, UnsupportedModelError)
 from .forest import Forest, Tree
@@ -19,7 +21,8 @@ __version__ = "0.1.0"
 __all__ = [
     "CancelledError", "Contributions", "DataError", "Dataset", "Forest", "GrovewiseError",
     "ModelFileError", "ObliqueSurrogate", "SettingError", "Tree", "contributions",
-    "interaction_ranking", "interactions",
+    "interaction_ranking", "interactions", "partial_dependence", "accumulated_local_effects",
+    "PartialDependence", "AccumulatedEffects",
     "UnsafeModelError", "UnsupportedModelError", "depth_usage", "from_estimator",
     "impurity_importance", "load_data", "load_model", "mimic", "position_usage", "proximity",
     "proximity_pairs", "__version__",

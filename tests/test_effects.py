@@ -1,0 +1,98 @@
+"""Effect curves: partial dependence, individual curves, accumulated local effects.
+
+References named beside each check: the definition (the estimator's own ``predict_proba``
+with the column set to each grid value), scikit-learn's ``partial_dependence(method="brute")``
+on the same grid, and, for accumulated local effects, the centred partial dependence of a
+model that is additive in its margin (gradient boosting of single-split trees). Data: breast
+cancer and wine, and tables invented for the tests (said where).
+"""
+
+import lightgbm as lgb
+import numpy as np
+import pytest
+from sklearn.datasets import load_breast_cancer, load_wine
+from sklearn.ensemble import GradientBoostingClassifier, RandomForestClassifier
+from sklearn.inspection import partial_dependence as sklearn_partial_dependence
+
+import grovewise as gw
+from grovewise.analysis.effects import DEFAULT_GRID
+
+
+def test_partial_dependence_equals_its_definition_and_scikit_learn():
+    X, y = load_breast_cancer(return_X_y=True)
+    model = RandomForestClassifier(40, random_state=0).fit(X, y)
+    forest = gw.from_estimator(model)
+    pd_ = gw.partial_dependence(forest, X, 3, kind="both")
+    assert pd_.grid.size <= DEFAULT_GRID and pd_.average.shape == (pd_.grid.size, 2)
+    # reference: the definition, with the estimator's own predict_proba
+    for k in (0, pd_.grid.size // 2, pd_.grid.size - 1):
+        moved = X.copy()
+        moved[:, 3] = pd_.grid[k]
+        assert np.abs(model.predict_proba(moved).mean(axis=0) - pd_.average[k]).max() <= 1e-9
+        assert np.abs(model.predict_proba(moved) - pd_.individual[:, k]).max() <= 1e-9
+    # reference: scikit-learn's brute partial dependence on the same grid (second class)
+    ref = sklearn_partial_dependence(model, X, [3], method="brute", kind="both",
+                                     custom_values={3: pd_.grid})
+    assert np.abs(ref["average"][0] - pd_.average[:, 1]).max() <= 1e-9
+    assert np.abs(ref["individual"][0] - pd_.individual[:, :, 1]).max() <= 1e-9
+
+
+def test_partial_dependence_multi_class_and_small_chunks():
+    X, y = load_wine(return_X_y=True)
+    model = GradientBoostingClassifier(n_estimators=30, random_state=0).fit(X, y)
+    forest = gw.from_estimator(model)
+    pd_ = gw.partial_dependence(forest, X, "x6", chunk_cells=50)
+    ref = sklearn_partial_dependence(model, X, [6], method="brute",
+                                     custom_values={6: pd_.grid})
+    assert np.abs(ref["average"].T - pd_.average).max() <= 1e-9  # reference: scikit-learn
+    assert np.allclose(pd_.average.sum(axis=1), 1.0)
+
+
+def test_accumulated_local_effects_of_an_additive_model_are_its_centred_partial_dependence():
+    # invented: y depends on x0 and sin(2 x1), additively in the log-odds
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(3000, 3))
+    y = (X[:, 0] + np.sin(2 * X[:, 1]) + 0.3 * rng.normal(size=3000) > 0).astype(int)
+    model = GradientBoostingClassifier(n_estimators=80, max_depth=1, random_state=0).fit(X, y)
+    forest = gw.from_estimator(model)
+    ale = gw.accumulated_local_effects(forest, X, 1, output="margin")
+    pd_ = gw.partial_dependence(forest, X, 1, grid=ale.edges, output="margin")
+    mids = 0.5 * (pd_.average[:-1, 0] + pd_.average[1:, 0])
+    centred = pd_.average[:, 0] - np.average(mids, weights=ale.counts)
+    # reference: the centred partial dependence (exact for a model additive in its margin)
+    assert np.abs(ale.effect[:, 0] - centred).max() <= 1e-9
+    assert ale.counts.sum() == 3000
+    # the curve follows sin(2 x1): up from x1 = -pi/4 to pi/4, down after
+    at = lambda v: np.interp(v, ale.edges, ale.effect[:, 0])  # noqa: E731
+    assert at(0.78) - at(-0.78) > 1.0 and at(0.78) - at(1.8) > 0.5
+
+
+def test_categorical_feature_has_per_category_partial_dependence():
+    rng = np.random.default_rng(1)
+    code = rng.integers(0, 6, 3000)
+    x = rng.normal(size=3000)
+    effect = np.array([2.0, -1.0, 0.5, -2.0, 1.0, 0.0])
+    y = (rng.random(3000) < 1 / (1 + np.exp(-(effect[code] + x)))).astype(int)
+    X = np.column_stack([x, code.astype(float)])
+    model = lgb.LGBMClassifier(n_estimators=40, num_leaves=8, min_data_per_group=10,
+                               cat_smooth=1, verbose=-1, random_state=0).fit(
+        X, y, categorical_feature=[1])
+    forest = gw.from_estimator(model)
+    pd_ = gw.partial_dependence(forest, X, 1)
+    assert pd_.grid.tolist() == [0.0, 1.0, 2.0, 3.0, 4.0, 5.0]
+    assert pd_.categories == ["0", "1", "2", "3", "4", "5"]
+    # the planted effects' order is the curve's order
+    assert np.argsort(pd_.average[:, 1]).tolist() == np.argsort(effect).tolist()
+    with pytest.raises(gw.SettingError, match="categorical"):
+        gw.accumulated_local_effects(forest, X, 1)
+
+
+def test_settings_are_checked():
+    X, y = load_breast_cancer(return_X_y=True)
+    forest = gw.from_estimator(RandomForestClassifier(3, random_state=0).fit(X, y))
+    with pytest.raises(gw.SettingError, match="not one of the model's features"):
+        gw.partial_dependence(forest, X, "age")
+    with pytest.raises(gw.SettingError, match="kind="):
+        gw.partial_dependence(forest, X, 0, kind="mean")
+    with pytest.raises(gw.SettingError, match="margin"):
+        gw.partial_dependence(forest, X, 0, output="margin")
