@@ -485,9 +485,16 @@ def test_dropping_a_model_and_data_opens_the_dialog_prefilled(qapp, settings_hom
     dlg = next(d for d in w._dialogs if isinstance(d, OpenDialog))
     assert dlg.model.text() == str(paths["xgboost"]) and dlg.data.text() == str(paths["data"])
     assert "complication" in [dlg.target.itemText(i) for i in range(dlg.target.count())]
-    (tmp_path / "notes.txt").write_text("not a model", encoding="utf-8")
-    assert w.handle_dropped([str(tmp_path / "notes.txt")]) == "ignored"
+    (tmp_path / "notes.docx").write_text("not a model", encoding="utf-8")
+    assert w.handle_dropped([str(tmp_path / "notes.docx")]) == "ignored"
     dlg.close()
+    # the new model files are accepted as models: LightGBM's text, CatBoost, ONNX
+    for name in ("booster.txt", "model.cbm", "model.onnx"):
+        w._pending_drop = {}
+        assert w.handle_dropped([str(tmp_path / name), str(paths["data"])]) == "dialog"
+        dlg = [d for d in w._dialogs if isinstance(d, OpenDialog)][-1]
+        assert dlg.model.text() == str(tmp_path / name)
+        dlg.close()
     w.close()
 
 

@@ -444,14 +444,24 @@ class Review:
 
     def fill_values(self) -> np.ndarray:
         """Per feature, the value a missing entry takes for the surrogate: the median of the
-        training rows (0 for a feature missing on every training row). The surrogate is a
-        tree of comparisons and cannot route a missing value itself."""
+        training rows, or for a categorical feature the most frequent code among them (the
+        smallest on a tie); 0 for a feature missing on every training row. The surrogate is
+        a tree of comparisons and cannot route a missing value itself."""
         X = self.data.X[self.intake.train_rows]
+        categorical = getattr(self.forest, "categories", None) or {}
         with np.errstate(all="ignore"):
             present = ~np.isnan(X)
-            med = np.array([np.median(X[present[:, j], j]) if present[:, j].any() else 0.0
-                            for j in range(X.shape[1])])
-        return med
+            out = np.zeros(X.shape[1])
+            for j in range(X.shape[1]):
+                col = X[present[:, j], j]
+                if not col.size:
+                    continue
+                if j in categorical:
+                    codes, counts = np.unique(col, return_counts=True)
+                    out[j] = codes[int(np.argmax(counts))]
+                else:
+                    out[j] = np.median(col)
+        return out
 
     def filled(self, X: np.ndarray) -> np.ndarray:
         """``X`` with missing values replaced by :meth:`fill_values`."""

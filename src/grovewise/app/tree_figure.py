@@ -5,7 +5,9 @@ The surrogate itself is drawn by the report's figure
 of a CART tree yet, so this one reads scikit-learn's own ``tree_`` arrays and draws it in the
 same manner and colours: split boxes with the rule ("yes" to the left), leaves framed in
 their class's colour with rows and fidelity (the share of the leaf's fidelity weight
-held by its class, as the surrogate's leaves report it).
+held by its class, as the surrogate's leaves report it). A split on a categorical feature
+(the tree was then fit on category ranks and is wrapped, ``EncodedTree``) reads as the set of
+categories that go left, as the surrogate's rules do.
 """
 
 from __future__ import annotations
@@ -18,6 +20,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from ..report.figures_surrogate import BRANCH_EDGE, BRANCH_FACE, INK, MUTED, class_colour
+from ..surrogate.rules import category_text
 
 WRAP = 26
 
@@ -33,9 +36,12 @@ class _Box:
 
 
 def _boxes(cart, names: list[str], classes: list) -> _Box:
-    """CART's nodes as boxes; ``cart`` was fit on class indices into ``classes``."""
+    """CART's nodes as boxes; ``cart.classes_`` are labels in ``classes`` (or indices)."""
     t = cart.tree_
-    fitted = [int(c) for c in cart.classes_]
+    order = getattr(cart, "category_order", None)
+    labels = list(cart.classes_)
+    fitted = ([classes.index(c) for c in labels] if all(c in classes for c in labels)
+              else [int(c) for c in labels])
     total = max(int(t.n_node_samples[0]), 1)
 
     def leaf(i: int) -> _Box:
@@ -54,7 +60,11 @@ def _boxes(cart, names: list[str], classes: list) -> _Box:
         left, right = visit(int(t.children_left[i])), visit(int(t.children_right[i]))
         if left.left is None and right.left is None and left.leaf_class == right.leaf_class:
             return leaf(i)  # a split whose sides predict the same class decides nothing
-        rule = f"{names[int(t.feature[i])]} <= {float(t.threshold[i]):.6g}"
+        j = int(t.feature[i])
+        if order is not None and order.is_categorical(j):  # ranks up to the cut go left
+            rule = category_text(names[j], order.split_sets(j, float(t.threshold[i]), "<=")[0])
+        else:
+            rule = f"{names[j]} <= {float(t.threshold[i]):.6g}"
         return _Box(rule, left, right)
     return visit(0)
 

@@ -13,6 +13,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from ..errors import SettingError
 from ..plain import to_plain
+from .categories import CategoryOrder, EncodedTree, solo_mask
 from .pipeline import PipelineSettings, run_pipeline
 from .program import ROUTINGS
 from .rules import round_tree, tree_text
@@ -67,11 +68,17 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     threads : int or None, default=None
         HiGHS threads.
 
+    Categorical features (``fit(..., category_order=...)``, see :mod:`.categories`): the data
+    keeps category codes in such a column; the estimator replaces each code by its
+    category's rank before fitting and in ``predict``, ``predict_proba`` and ``apply``, and
+    a categorical feature only ever splits alone, so its rules read as sets of categories.
+
     Attributes
     ----------
     classes_ : ndarray
     tree_ : ObliqueTree
-        The rounded tree the estimator predicts with (what ``rules_`` says).
+        The rounded tree the estimator predicts with (what ``rules_`` says); in the encoded
+        space, where a categorical column holds ranks, not codes.
     exact_tree_ : ObliqueTree
         The tree before rounding.
     rules_ : str
@@ -97,6 +104,13 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     result_ : PipelineResult
         Stages (each with its tree and ``depth_used``), certificate, sample size, read-back
         check.
+    greedy_ : DecisionTreeClassifier or EncodedTree
+        The greedy baseline (CART); with categorical features it was fit on ranks, and is
+        wrapped so that it too is given codes.
+    category_order_ : CategoryOrder or None
+        The order of the categories (None without categorical features).
+    solo_features_ : ndarray of bool or None
+        Features that only ever split alone.
     """
 
     def __init__(self, depth=2, max_features_per_split=None, alpha=0.0, min_leaf_size=1,
@@ -177,7 +191,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     # ------------------------------------------------------------------ fit
     def fit(self, X, y, sample_weight=None, *, must_link=None, allowed_features=None,
             feature_penalty=None, feature_names=None, progress=None, cancel=None,
-            mps_path=None, started=None):
+            mps_path=None, started=None, solo_features=None, category_order=None):
         """Fit the surrogate.
 
         Parameters
@@ -206,11 +220,28 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         started : float, optional
             ``time.perf_counter()`` when the time limit began (default: now), so that work
             done before ``fit`` counts against ``time_limit`` too.
+        solo_features : array-like, optional
+            Feature indices or a boolean mask (n_features,): features that may only split
+            alone, never in a combination with another feature. Default: the categorical
+            features of ``category_order`` (none without it).
+        category_order : CategoryOrder, optional
+            The order of the categories of the categorical features
+            (:func:`~grovewise.surrogate.categories.order_categories`). ``X`` then holds
+            category codes in those columns, here and in ``predict``, ``predict_proba`` and
+            ``apply``.
         """
         self._check_params()
         X, y = validate_data(self, X, y, dtype=np.float64)
         check_classification_targets(y)
         n, p = X.shape
+        order = self._category_order(category_order, p)
+        if order is not None:
+            X = order.encode(X)
+        try:
+            solo = solo_mask(order.features if solo_features is None and order is not None
+                             else solo_features, p)
+        except ValueError as exc:
+            raise SettingError(str(exc)) from None
         w = self._weights(sample_weight, n)
         self.classes_, y_idx = np.unique(y, return_inverse=True)
         keep = w > 0
@@ -229,13 +260,27 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             time_limit=float(self.time_limit), node_limit=self.node_limit, mip_gap=self.mip_gap,
             seed=seed, sample_size=self.sample_size, routing=self.routing,
             proximity_penalty=self.proximity_penalty, threads=self.threads,
-            mps_path=None if mps_path is None else str(mps_path), started=started)
+            mps_path=None if mps_path is None else str(mps_path), started=started, solo=solo)
         hard = pairs if self.proximity_penalty is None else None
         soft = pairs if self.proximity_penalty is not None else None
         res = run_pipeline(Xk, yk, wk, len(self.classes_), scaling, st, must_link=hard,
                            soft_pairs=soft, progress=progress, cancel=cancel)
+        self.category_order_ = order
+        self.solo_features_ = solo
         self._finish(res, Xk, yk, wk, scaling, penalty, feature_names, p)
         return self
+
+    @staticmethod
+    def _category_order(order, p: int) -> CategoryOrder | None:
+        if order is None:
+            return None
+        if not isinstance(order, CategoryOrder):
+            raise SettingError("category_order must be a CategoryOrder (from "
+                               "grovewise.surrogate.categories.order_categories)")
+        bad = [j for j in order.features if not 0 <= int(j) < p]
+        if bad:
+            raise SettingError(f"category_order names feature(s) {bad}, outside 0..{p - 1}")
+        return order
 
     def _weights(self, sample_weight, n: int) -> np.ndarray:
         if sample_weight is None:
@@ -264,7 +309,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         wn = wk / wk.sum()
         K = len(self.classes_)
         exact = with_majority_classes(res.tree, Xs, yk, wk, K)
-        rounded, rules = round_tree(exact, Xs)
+        order = self.category_order_
+        rounded, rules = round_tree(exact, Xs, order)
         # if rounding moved a point, its leaves' classes are assigned anew, and a split that
         # then decides nothing goes (with_majority_classes): its rule goes with it
         rounded = with_majority_classes(rounded, Xs, yk, wk, K)
@@ -278,6 +324,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         self.result_ = res
         # the baseline was fit on class indices; give it the labels so it predicts like us
         res.greedy.classes_ = self.classes_[res.greedy.classes_.astype(np.int64)]
+        if order is not None:  # fit on ranks: it is given codes, like the surrogate
+            res.greedy = EncodedTree(res.greedy, order)
         self.greedy_ = res.greedy
         self.exact_fidelity_ = 1.0 - weighted_disagreement(exact, Xs, yk, wn)
         self.fidelity_ = 1.0 - weighted_disagreement(rounded, Xs, yk, wn)
@@ -310,7 +358,13 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     def _scaled(self, X) -> np.ndarray:
         check_is_fitted(self)
         X = validate_data(self, X, dtype=np.float64, reset=False)
-        return self.tree_.scaling.transform(X)
+        return self.tree_.scaling.transform(self.encode(X))
+
+    def encode(self, X) -> np.ndarray:
+        """``X`` as the tree reads it: each category code replaced by its rank (unchanged
+        without categorical features)."""
+        order = getattr(self, "category_order_", None)
+        return np.asarray(X, dtype=np.float64) if order is None else order.encode(X)
 
     def apply(self, X) -> np.ndarray:
         """Leaf index (0 .. 2**depth - 1) of every row."""
@@ -362,6 +416,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             "bound": self.bound_, "mip_gap": self.mip_gap_, "fidelity": self.fidelity_,
             "exact_fidelity": self.exact_fidelity_, "params": to_plain(self.get_params()),
             "pipeline": to_plain(self.result_.to_dict()),
+            "category_order": None if getattr(self, "category_order_", None) is None else
+            self.category_order_.to_dict(),
         }
 
     def export_json(self, path=None) -> str:

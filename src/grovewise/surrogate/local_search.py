@@ -6,7 +6,9 @@ with prefix sums, the weight each leaf below t would get per class; the leaves t
 their weighted-majority class, so the cost of a cut is the weight outside the majorities.
 Directions tried at a node: the axis of every admissible feature, two-feature directions
 at evenly spaced angles over the most useful features (when k >= 2), the node's current
-direction, and coordinate moves from the best direction found (when k >= 3). Nodes are
+direction, and coordinate moves from the best direction found (when k >= 3). A "solo"
+feature (a categorical one, ``SearchSettings.solo``) is tried on its own axis only: no
+two-feature direction or coordinate move mixes it with another feature. Nodes are
 visited top-down, and passes repeat while the objective falls; the objective never rises,
 since each node's current split is among the candidates.
 
@@ -45,6 +47,16 @@ class SearchSettings:
     angles: int = 16
     max_passes: int = 6
     min_gap: float = 2 * MIN_MARGIN
+    # Features that may only split alone (bool per feature, None: none): a categorical
+    # feature, whose splits must stay sets of categories. No two-feature direction or
+    # coordinate move mixes one of them with another feature.
+    solo: np.ndarray | None = None
+
+    def is_solo(self, feats: np.ndarray) -> np.ndarray:
+        """Per feature index in ``feats``: may it only split alone?"""
+        if self.solo is None:
+            return np.zeros(np.asarray(feats).shape, dtype=bool)
+        return np.asarray(self.solo, dtype=bool)[feats]
 
 
 def improve(tree: ObliqueTree, Xs: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
@@ -181,7 +193,8 @@ def _improve_node(tree: ObliqueTree, t: int, Xs: np.ndarray, y: np.ndarray, w: n
     cost = cost + (A != 0) @ pen_row
     if not only_current and feats.size and (st.max_features is None or st.max_features >= 2):
         axis_cost = cost[-feats.size:]
-        top = feats[np.argsort(axis_cost, kind="stable")[: st.pair_features]]
+        mixable = ~st.is_solo(feats)  # a solo feature never joins a pair
+        top = feats[mixable][np.argsort(axis_cost[mixable], kind="stable")[: st.pair_features]]
         P = _unit(_pairs(top, Xs.shape[1], st.angles))
         if P.size:
             pc, po = sweep.run(P)
@@ -245,13 +258,22 @@ def _pairs(feats: np.ndarray, p: int, angles: int) -> np.ndarray:
 
 
 def _coordinate_moves(A, cost, offs, feats, sweep, pen_row, st: SearchSettings, rounds: int = 3):
-    """From the best direction, try adding +-step of one more feature (or changing one)."""
+    """From the best direction, try adding +-step of one more feature (or changing one).
+
+    Solo features take no part: the moves start from the best direction without one, and
+    never add one."""
     steps = np.array([-0.5, -0.2, -0.05, 0.05, 0.2, 0.5])
+    solo = None if st.solo is None else np.asarray(st.solo, dtype=bool)
+    mixable = feats if solo is None else feats[~solo[feats]]
     for _ in range(rounds):
-        i = int(np.argmin(cost))
+        base = cost if solo is None else np.where((A[:, solo] != 0).any(axis=1), np.inf, cost)
+        i = int(np.argmin(base))
+        if solo is not None and not np.isfinite(base[i]):
+            break  # no direction without a solo feature to start from
         a = A[i]
         support = np.flatnonzero(a)
-        allowed = feats if (st.max_features is None or support.size < st.max_features) else support
+        allowed = mixable if (st.max_features is None or support.size < st.max_features) \
+            else support
         moves = []
         for j in allowed:
             for s in steps:

@@ -5,6 +5,10 @@ a confident prediction costs more). The features a split may use at each depth, 
 each costs, come from the forest's own depth usage: ``f[d, j]``, the share of the forest's
 split nodes at depth d that use feature j. Rows the forest treats alike (proximity at or
 above the threshold) must share a leaf (or, with ``proximity_penalty``, pay when they don't).
+
+A categorical feature of the forest (its column holds category codes) is handed to the
+surrogate with its categories in order (:func:`~.categories.order_categories`, from the
+training rows and the forest's probabilities): it only splits alone, as a set of categories.
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ from ..errors import DataError, SettingError
 from ..forest import Forest
 from ..plain import to_plain
 from ..sampling import stratified_rows
+from .categories import order_categories
 from .estimator import PENALTY_EPS, ObliqueSurrogate
 from .solver import versions
 from .tree import n_leaves, reachable_leaves
@@ -52,8 +57,9 @@ class MimicResult:
     Attributes
     ----------
     surrogate : ObliqueSurrogate
-    greedy : DecisionTreeClassifier
-        CART of the same depth on the same targets and weights (the baseline).
+    greedy : DecisionTreeClassifier or EncodedTree
+        CART of the same depth on the same targets and weights (the baseline); with
+        categorical features, wrapped so that it is given category codes like the surrogate.
     fidelity : dict
         ``{"surrogate": {"train", "holdout", "full"}, "greedy": {...}}``: share of rows where
         the tree predicts the forest's class (``holdout`` None without a holdout).
@@ -70,6 +76,9 @@ class MimicResult:
         Each candidate's stage, objective, fidelity and time.
     winner : str
         The stage whose tree was chosen; ``note`` says it plainly when that is the greedy tree.
+    category_order : CategoryOrder or None
+        The order of the categories of the categorical features, from the training rows
+        (None without categorical features); the surrogate holds the same.
     """
 
     surrogate: ObliqueSurrogate
@@ -86,6 +95,7 @@ class MimicResult:
     settings: dict
     train_rows: np.ndarray = field(repr=False)
     holdout_rows: np.ndarray = field(repr=False)
+    category_order: object = None
 
     def to_dict(self) -> dict:
         return to_plain({
@@ -153,11 +163,13 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
     pairs, prox = _proximity(forest, X[train], yhat[train], proximity_threshold, prox_rows,
                              seed or 0)
 
+    order = order_categories(forest, X[train], proba[train])
     est = ObliqueSurrogate(depth=depth, **params)
     labels = forest.classes_[yhat]
     est.fit(X[train], labels[train], w[train], must_link=pairs, allowed_features=allowed,
             feature_penalty=penalty, feature_names=forest.feature_names,
-            progress=progress, cancel=cancel, mps_path=mps_path, started=started)
+            progress=progress, cancel=cancel, mps_path=mps_path, started=started,
+            category_order=order)
     prox["separated_pairs"] = _separated(est, X[train], pairs)
     greedy = est.greedy_
     res = est.result_
@@ -185,7 +197,7 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
                   "usage_floor": floor, "usage_weight": weight_kind,
                   "forbidden_features": _plain_list(forbidden), **to_plain(params),
                   "usage_shares": f.tolist()},
-        train_rows=train, holdout_rows=hold)
+        train_rows=train, holdout_rows=hold, category_order=order)
 
 
 def _plain_list(v):

@@ -60,6 +60,10 @@ class PipelineSettings:
     # on large data, so the program gets its share of the time limit.
     search_rows: int = 10_000
     started: float | None = None  # perf_counter() when the time limit began (default: now)
+    # Features that may only split alone (bool per feature; None: none), such as categorical
+    # features: every stage keeps them out of splits that use another feature (the greedy
+    # tree is axis-aligned anyway).
+    solo: np.ndarray | None = None
 
     @property
     def exact(self) -> bool:
@@ -234,7 +238,8 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
 
     # 2. node-by-node search from the greedy tree
     search = SearchSettings(admissible=st.admissible, penalty=st.penalty, alpha=st.alpha,
-                            max_features=st.max_features, min_leaf_size=st.min_leaf_size)
+                            max_features=st.max_features, min_leaf_size=st.min_leaf_size,
+                            solo=st.solo)
     if n_classes > 1 and not _stop(cancel):
         s0 = time.perf_counter()
         ls_deadline = until(s0 + st.local_search_share * st.time_limit)
@@ -369,7 +374,7 @@ def _build(sample: Sample, st: PipelineSettings, K: int, board: _Board, gtree: O
                        admissible=st.admissible, penalty=st.penalty, alpha=st.alpha,
                        max_features=st.max_features, min_leaf_size=st.min_leaf_size,
                        soft_pairs=soft, beta=float(st.proximity_penalty or 0.0), mu=mu,
-                       routing=st.routing)
+                       routing=st.routing, solo=st.solo)
     return build_program(data)
 
 

@@ -4,7 +4,8 @@ The program finds a complete binary tree of fixed depth whose branch nodes test 
 hyperplanes, agreeing with the ensemble's predictions on a weighted set of points. It builds
 on the optimal-classification-tree MILP with hyperplane splits (Bertsimas & Dunn,
 "Optimal classification trees", Machine Learning 106, 2017) and adds fidelity weights,
-admissible features, an inverse-frequency sparsity penalty and proximity.
+admissible features, an inverse-frequency sparsity penalty and proximity, and keeps a
+categorical ("solo") feature out of every split that uses another feature.
 
 Points are grouped: every point of a group shares one set of leaf variables ``z[g, l]``
 (hard proximity: the group's points must end in one leaf), while each *distinct* point of a
@@ -71,6 +72,9 @@ class ProgramData:
         Routing margin: a left point satisfies ``a . x + mu <= b``.
     routing : str
         ``"node"`` or ``"leaf"``.
+    solo : ndarray of bool (p,) or None
+        Features that may only split alone (categorical features, whose splits must stay
+        sets of categories): a node that uses one uses no other feature.
     """
 
     Xs: np.ndarray
@@ -88,6 +92,7 @@ class ProgramData:
     beta: float = 0.0
     mu: float = MIN_MARGIN
     routing: str = "node"
+    solo: np.ndarray | None = None
 
     @property
     def n_groups(self) -> int:
@@ -188,6 +193,10 @@ class Program:
                 return None, f"node {tt} uses feature(s) {bad.tolist()} not admissible there"
             if d.max_features is not None and np.count_nonzero(t.coef[tt]) > d.max_features:
                 return None, f"node {tt} uses more than {d.max_features} features"
+            used = np.flatnonzero(t.coef[tt] != 0)
+            if d.solo is not None and used.size > 1 and np.any(d.solo[used]):
+                return None, (f"node {tt} mixes feature(s) {used[d.solo[used]].tolist()}, "
+                              "which may only split alone, with another feature")
         leaf = t.route_scaled(d.Xs)
         g_leaf = np.full(d.n_groups, -1)
         for i, g in enumerate(d.group):
@@ -355,6 +364,18 @@ def build_program(data: ProgramData) -> Program:
         m.k_cap = pyo.Constraint(range(nb), rule=lambda m, t: (
             sum(m.s[t, j] for j in by_node[t]) <= k_cap)
             if len(by_node[t]) > k_cap else pyo.Constraint.Skip)
+
+    # -- a solo feature splits alone: sum_{k != j} s[t, k] <= M_t (1 - s[t, j]), with M_t the
+    # most other features node t could use (its admissible ones less one, at most k)
+    if data.solo is not None:
+        solo = np.asarray(data.solo, dtype=bool)
+        solo_rows = [(t, j) for (t, j) in pairs if solo[j] and len(by_node[t]) > 1]
+
+        def solo_rule(m, t, j):
+            big = len(by_node[t]) - 1 if k_cap is None else min(len(by_node[t]) - 1, k_cap)
+            return sum(m.s[t, k] for k in by_node[t] if k != j) <= big * (1 - m.s[t, j])
+        if solo_rows:
+            m.solo = pyo.Constraint(solo_rows, rule=solo_rule)
 
     # -- assignment, used leaves, minimum leaf size
     m.one_leaf = pyo.Constraint(range(G), rule=lambda m, g: sum(m.z[g, l] for l in range(nl)) == 1)

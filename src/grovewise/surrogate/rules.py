@@ -7,6 +7,12 @@ threshold is the shortest decimal that still sends the training points reaching 
 the way the exact split did. If two digits change where a point goes, more are used (up
 to six); if even that fails, the exact values are kept. The rounded tree is what the
 surrogate predicts with, so the fidelity reported is that of the rules people read.
+
+A split on a categorical feature (which always splits alone; its column holds the rank of
+the category, :mod:`.categories`) is a set of categories: its cut is put halfway between two
+ranks (``k + 0.5``), on the side of the exact cut and between the ranks of the training
+points reaching the node that go left and right, so the sets are exact and no point moves.
+It reads ``region in {north, east}``, the categories that go left.
 """
 
 from __future__ import annotations
@@ -21,7 +27,12 @@ from .tree import ObliqueTree, depth_used, n_branch_nodes, node_depth
 
 @dataclass
 class Rule:
-    """One split in original units: ``sum coef[j] * x[j]  op  threshold`` sends a point left."""
+    """One split in original units: ``sum coef[j] * x[j]  op  threshold`` sends a point left.
+
+    On a categorical feature (alone, its value the category's rank) ``categories_left`` and
+    ``categories_right`` name the categories each side gets (in code order), and
+    ``other_codes_left`` says whether a code outside the known categories goes left; None for a
+    split on numeric features."""
 
     node: int
     features: list[int]
@@ -29,8 +40,17 @@ class Rule:
     threshold: float
     op: str  # "<" or ">"
     digits: int
+    categories_left: list | None = None
+    categories_right: list | None = None
+    other_codes_left: bool | None = None
+
+    @property
+    def categorical(self) -> bool:
+        return self.categories_left is not None
 
     def text(self, names: list[str]) -> str:
+        if self.categorical:
+            return category_text(names[self.features[0]], self.categories_left)
         terms = []
         for k, (j, c) in enumerate(zip(self.features, self.coef)):
             mag = abs(c)
@@ -42,10 +62,20 @@ class Rule:
         return f"{' '.join(terms)} {self.op} {_fmt(self.threshold)}"
 
     def to_dict(self, names: list[str]) -> dict:
-        return {"node": self.node, "features": [names[j] for j in self.features],
-                "feature_index": list(self.features), "coef": list(self.coef),
-                "threshold": self.threshold, "op": self.op, "digits": self.digits,
-                "text": self.text(names)}
+        out = {"node": self.node, "features": [names[j] for j in self.features],
+               "feature_index": list(self.features), "coef": list(self.coef),
+               "threshold": self.threshold, "op": self.op, "digits": self.digits,
+               "text": self.text(names)}
+        if self.categorical:  # the threshold is then in ranks of the category order
+            out.update(categorical=True, categories_left=list(self.categories_left),
+                       categories_right=list(self.categories_right),
+                       other_codes_left=bool(self.other_codes_left))
+        return out
+
+
+def category_text(name: str, left: list) -> str:
+    """A split on a categorical feature as the set of categories that go left."""
+    return f"{name} in {{{', '.join(str(c) for c in left)}}}"
 
 
 def _fmt(v: float) -> str:
@@ -80,10 +110,12 @@ def shortest_between(lo: float, hi: float) -> float | None:
     return None
 
 
-def round_tree(tree: ObliqueTree, Xs: np.ndarray) -> tuple[ObliqueTree, list[Rule]]:
+def round_tree(tree: ObliqueTree, Xs: np.ndarray, order=None) -> tuple[ObliqueTree, list[Rule]]:
     """The rounded tree (in scaled space, for predicting) and its rules in original units.
 
     ``Xs`` are the scaled training points; each node keeps their routing where rounding allows.
+    ``order`` (a :class:`~.categories.CategoryOrder`, or None) says which features are
+    categorical: a split on one of them alone becomes a set of categories.
     """
     sc = tree.scaling
     X = Xs * sc.span + sc.low
@@ -103,7 +135,12 @@ def round_tree(tree: ObliqueTree, Xs: np.ndarray) -> tuple[ObliqueTree, list[Rul
         here = paths[node_depth(t)] == t
         goes_left = exact_proj[here, t] < tree.offset[t]
         c, thr = sc.to_original(tree.coef[t], tree.offset[t])
-        rule, c_r, thr_r = _round_split(t, c, thr, X[here], goes_left)
+        used = np.flatnonzero(c)
+        if order is not None and used.size == 1 and order.is_categorical(int(used[0])):
+            rule, c_r, thr_r = _category_split(t, int(used[0]), c, thr, X[here], goes_left,
+                                               order)
+        else:
+            rule, c_r, thr_r = _round_split(t, c, thr, X[here], goes_left)
         a_s, b_s = sc.to_scaled(c_r, thr_r)
         out.coef[t] = a_s
         out.offset[t] = b_s
@@ -134,6 +171,32 @@ def _round_split(t: int, c: np.ndarray, thr: float, Xh: np.ndarray, goes_left: n
         if x is not None:
             return _rule(t, cr, x, digits), cr, x
     return _rule(t, cn, tn, 0), cn, tn
+
+
+def _category_split(t: int, j: int, c: np.ndarray, thr: float, Xh: np.ndarray,
+                    goes_left: np.ndarray, order):
+    """A split ``c[j] * rank < thr`` as a cut halfway between two ranks, and its sets.
+
+    With ``sign = sign(c[j])`` the split is ``v < thr / |c[j]|`` for ``v = sign * rank``.
+    The cut is the half-integer nearest that threshold, kept between the largest ``v`` of
+    the points going left and the smallest of those going right (ranks are whole numbers,
+    so there is always one), and within the ranks the feature can take."""
+    sign = 1.0 if c[j] > 0 else -1.0
+    tn = thr / abs(c[j])
+    v = sign * np.round(Xh[:, j])  # ranks read back from the scaling, made whole again
+    last = float(order.unknown_rank(j))
+    lo_dom, hi_dom = (-0.5, last + 0.5) if sign > 0 else (-last - 0.5, 0.5)
+    cut = float(np.clip(np.floor(tn) + 0.5, lo_dom, hi_dom))
+    if goes_left.any():
+        cut = max(cut, float(v[goes_left].max()) + 0.5)
+    if (~goes_left).any():
+        cut = min(cut, float(v[~goes_left].min()) - 0.5)
+    cr = np.zeros_like(c)
+    cr[j] = sign
+    rule = _rule(t, cr, cut, 1)
+    left, right, other = order.split_sets(j, rule.threshold, rule.op)
+    rule.categories_left, rule.categories_right, rule.other_codes_left = left, right, other
+    return rule, cr, cut
 
 
 def _rule(t: int, cr: np.ndarray, x: float, digits: int) -> Rule:

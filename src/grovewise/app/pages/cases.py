@@ -617,6 +617,8 @@ class CasesPage(Page):
                        "<td align='right'>value</td><td align='right'>term</td></tr>")
             for t in st.terms:
                 val = "missing" if math.isnan(t.value) else f"{t.value:.5g}"
+                if t.text:  # a category: its name, and the rank the cut compares
+                    val = f"{html.escape(t.text)} (rank {t.value:g})"
                 if t.filled:
                     val = f"missing → {val}"
                 out.append(f"<tr><td nowrap>{t.coef:.4g}</td><td nowrap>{html.escape(t.feature)}"
@@ -628,8 +630,10 @@ class CasesPage(Page):
             out.append(f"<tr><td colspan='3' nowrap>{test}</td>"
                        f"<td nowrap align='right'><b>{verdict}</b></td></tr></table>")
             if st.filled:
+                used = ("the most frequent category" if any(t.text for t in st.terms)
+                        else "the median")
                 out.append(f"<p style='color:{theme.CAUTION}'>A value here is missing: the "
-                           "surrogate uses the median of the rows it was fit on.</p>")
+                           f"surrogate uses {used} of the rows it was fit on.</p>")
             elif st.missing:
                 out.append(f"<p style='color:{theme.CAUTION}'>A value here is missing; the row "
                            "goes where the cases step sent it.</p>")
