@@ -205,6 +205,13 @@ def _intake(doc: Document, review) -> None:
         doc.add(Paragraph(note, "note"))
 
 
+def value_text(forest, j: int, v: float) -> str:
+    """A row's value of feature ``j`` as the data gives it: a category by its name."""
+    if forest.is_categorical(j):
+        return forest.category_name(j, v)
+    return "missing" if v != v else f"{v:.4g}"
+
+
 def _model_inputs(doc: Document, summary) -> None:
     """Categorical features, and a pipeline's estimator inputs with their raw columns."""
     cats = getattr(summary, "categorical", None) or {}
@@ -409,7 +416,8 @@ def _cases(doc: Document, review) -> None:
     rows = []
     for i in pick:
         feats = path_features(est, int(cases.surrogate_leaf[i]))
-        values = ", ".join(f"{names[j]} = {X[i, j]:.4g}" for j in feats) or "none (one leaf)"
+        values = ", ".join(f"{names[j]} = {value_text(review.forest, j, X[i, j])}"
+                           for j in feats) or "none (one leaf)"
         rows.append([int(i) + 1, ("train", "holdout", "holdout file")[int(cases.split[i])],
                      classes[cases.ensemble[i]], float(cases.proba[i, cases.ensemble[i]]),
                      classes[cases.surrogate[i]], int(cases.surrogate_leaf[i]), values])
