@@ -350,36 +350,31 @@ def forest_from_catboost(obj) -> Forest:
     return forest
 
 
-def read_catboost_file(p: Path):
-    """A CatBoost binary model file (``.cbm``) as CatBoost's own object."""
-    where = str(p)
-    catboost = _import_catboost(where)
+def _load(p: Path, fmt: str, redo: str):
+    """CatBoost's own object from file ``p`` in format ``fmt`` (errors name the file)."""
+    catboost = _import_catboost(str(p))
     model = catboost.CatBoost()
     try:
-        model.load_model(str(p), format="cbm")
+        model.load_model(str(p), format=fmt)
     except catboost.CatBoostError as exc:
         raise ModelFileError(f"{p}: CatBoost could not read this file ({_message(exc)}); it "
-                             "may be damaged or truncated; save the model again with "
-                             "save_model.") from None
+                             f"may be damaged or truncated; {redo}.") from None
+    return model
+
+
+def read_catboost_file(p: Path):
+    """A CatBoost binary model file (``.cbm``) as CatBoost's own object."""
+    model = _load(p, "cbm", "save the model again with save_model")
     # The refusals, with messages naming the file.
-    forest_from_catboost_json(_export_json(model, where), where=where)
+    forest_from_catboost_json(_export_json(model, str(p)), where=str(p))
     return model
 
 
 def read_catboost_json(doc: dict, p: Path):
     """A CatBoost JSON export, read back with CatBoost itself so that its predictions are the
     exactness proof's reference."""
-    where = str(p)
-    forest_from_catboost_json(doc, where=where)  # the refusals, naming the file
-    catboost = _import_catboost(where)
-    model = catboost.CatBoost()
-    try:
-        model.load_model(str(p), format="json")
-    except catboost.CatBoostError as exc:
-        raise ModelFileError(f"{p}: CatBoost could not read this JSON export "
-                             f"({_message(exc)}); export the model again with "
-                             "save_model(..., format='json').") from None
-    return model
+    forest_from_catboost_json(doc, where=str(p))  # the refusals, naming the file
+    return _load(p, "json", "export the model again with save_model(..., format='json')")
 
 
 def catboost_reference(native, X: np.ndarray, forest: Forest):

@@ -58,10 +58,11 @@ def check_exactness(forest: Forest, native, X: np.ndarray, *, progress=None,
     larger data, for the text.
     """
     fam = family_of(native)
-    library = forest.source.get("library", fam.library)
+    library = fam.library  # whose predictions are the reference (onnxruntime for ONNX)
     # A pipeline is checked against scikit-learn, but its estimator's sums set the contract
     # (a pipeline ending in XGBoost sums in float32, as XGBoost does).
-    tolerance = max([fam.tolerance, *(f.tolerance for f in families() if f.library == library)])
+    inner = forest.source.get("library", library)
+    tolerance = max([fam.tolerance, *(f.tolerance for f in families() if f.library == inner)])
     n = X.shape[0]
     diff, classes_equal, leaves_equal = 0.0, True, None
     for s in range(0, n, CHUNK_ROWS):
