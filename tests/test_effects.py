@@ -96,3 +96,43 @@ def test_settings_are_checked():
         gw.partial_dependence(forest, X, 0, kind="mean")
     with pytest.raises(gw.SettingError, match="margin"):
         gw.partial_dependence(forest, X, 0, output="margin")
+
+
+def test_review_effects_on_the_sample_are_rederived(tmp_path):
+    """The cases step's effects, re-derived outside the code path that made them."""
+    from grovewise.review import Review, ReviewInputs, ReviewSettings
+    from grovewise.sample_data import sample_paths
+    from grovewise.sampling import stratified_rows
+
+    p = sample_paths()
+    review = Review(ReviewInputs(p["forest"], p["data"], target=p["target"]),
+                    ReviewSettings(time_limit=5, node_limit=10, effects_rows=400,
+                                   interaction_rows=50))
+    review.run(["intake", "surrogate", "cases"])
+    fx = review.cases.effects
+    X = review.data.X
+    rows = stratified_rows(review.cases.ensemble[:X.shape[0]], X.shape[0], 400, 0).rows
+    assert fx.sample["size"] == 400 and fx.sample["sampled"]
+    # reference: gw.contributions on the same rows, mean |value| per feature by numpy
+    c = gw.contributions(review.forest, X[rows])
+    expected = np.abs(c.values).mean(axis=0).sum(axis=1)
+    assert np.allclose([fx.importance[n] for n in review.forest.feature_names], expected,
+                       rtol=0, atol=1e-12)
+    top = fx.curves[0]
+    assert top.feature == fx.ranking()[0]
+    # the partial dependence curve is the definition on the same rows
+    moved = X[rows].copy()
+    moved[:, top.index] = top.partial.grid[3]
+    assert np.allclose(review.forest.predict_proba(moved).mean(axis=0), top.partial.average[3],
+                       atol=1e-12)
+    # disagreement rows: the most confident ones, explained exactly
+    picked = review.cases.confident_disagreements(12)
+    assert fx.case_rows.tolist() == picked.tolist()
+    if picked.size:
+        explained = fx.case_base + fx.case_values.sum(axis=1)
+        assert np.allclose(explained, review.forest.predict_proba(review.case_rows()[picked]),
+                           atol=1e-9)
+    assert "The ensemble combines" in fx.pair_statement
+    for curve in fx.curves:
+        for cut in curve.cuts:
+            assert cut.statement.startswith("The surrogate")

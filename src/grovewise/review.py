@@ -84,6 +84,10 @@ class ReviewSettings:
     permutation_rows: int = 5_000
     exactness_rows: int = 50_000
     proximity_rows: int = 3_000
+    # The effects (grovewise.effects_summary): the rows their summaries are computed on, and
+    # the first rows of those that the interactions use (they cost a walk per feature).
+    effects_rows: int = 1_000
+    interaction_rows: int = 200
     # Weak spots (grovewise.weak_spots): when a leaf, the fit or the data deserve a warning.
     leaf_min_holdout_rows: int = 30
     leaf_fidelity_floor: float = 0.8
@@ -116,6 +120,10 @@ class ReviewSettings:
              "0 (every row) or a whole number of at least 10"),
             ("proximity_rows", _whole(self.proximity_rows) and 2 <= self.proximity_rows
              <= 20_000, "a whole number from 2 to 20,000"),
+            ("effects_rows", _whole(self.effects_rows) and 10 <= self.effects_rows <= 100_000,
+             "a whole number from 10 to 100,000"),
+            ("interaction_rows", _whole(self.interaction_rows) and 1 <= self.interaction_rows
+             <= 10_000, "a whole number from 1 to 10,000"),
             ("leaf_min_holdout_rows", _whole(self.leaf_min_holdout_rows), "0 or more"),
             ("leaf_fidelity_floor", 0 <= float(self.leaf_fidelity_floor) <= 1, "from 0 to 1"),
             ("overfit_gap", 0 <= float(self.overfit_gap) <= 1, "from 0 to 1"),
@@ -207,10 +215,17 @@ class CasesResult:
     split: np.ndarray  # 0 train, 1 holdout (review data), 2 holdout file
     disagreements: np.ndarray  # row indices where the surrogate differs from the ensemble
     fill_values: np.ndarray  # per feature: what a missing value is for the surrogate
+    effects: object = None  # grovewise.effects_summary.EffectsResult
 
     @property
     def agreement(self) -> float:
         return float(np.mean(self.surrogate == self.ensemble)) if self.ensemble.size else 1.0
+
+    def confident_disagreements(self, k: int) -> np.ndarray:
+        """The rows (at most ``k``) where the surrogate disagrees with the ensemble and the
+        ensemble is most confident, most confident first."""
+        conf = self.proba[self.disagreements, self.ensemble[self.disagreements]]
+        return self.disagreements[np.argsort(-conf, kind="stable")[:k]]
 
 
 def proba_in_blocks(forest: Forest, X: np.ndarray, meter: StepMeter | None = None
@@ -527,11 +542,28 @@ class Review:
         to_index = np.vectorize(lambda c: classes.index(c), otypes=[np.int64])
         surrogate = to_index(sur.surrogate.predict(filled))
         greedy = to_index(sur.greedy.predict(filled))
-        return CasesResult(proba=proba, ensemble=ensemble, surrogate=surrogate,
-                           surrogate_leaf=np.asarray(sur.surrogate.apply(filled)),
-                           greedy=greedy, split=split,
-                           disagreements=np.flatnonzero(surrogate != ensemble),
-                           fill_values=self.fill_values())
+        result = CasesResult(proba=proba, ensemble=ensemble, surrogate=surrogate,
+                             surrogate_leaf=np.asarray(sur.surrogate.apply(filled)),
+                             greedy=greedy, split=split,
+                             disagreements=np.flatnonzero(surrogate != ensemble),
+                             fill_values=self.fill_values())
+        result.effects = self._effects(result, allX, report, cancel)
+        return result
+
+    def _effects(self, cases: CasesResult, allX: np.ndarray, report: Progress,
+                 cancel: threading.Event | None):
+        """The ensemble's own effects, tied to the surrogate (grovewise.effects_summary)."""
+        from .analysis.thresholds import threshold_profiles
+        from .effects_summary import DISAGREEMENT_ROWS, review_effects
+
+        st, X = self.settings, self.data.X
+        picked = cases.confident_disagreements(DISAGREEMENT_ROWS)
+        return review_effects(
+            self.forest, X, cases.ensemble[:X.shape[0]], self.surrogate.surrogate,
+            threshold_profiles(self.forest), rows=st.effects_rows,
+            interaction_rows=st.interaction_rows, seed=st.seed, case_rows=picked,
+            case_X=allX[picked], cancel=cancel, jobs=self.jobs,
+            progress=lambda f, msg: report("cases", 0.1 + 0.85 * f, msg))
 
     def case_rows(self) -> np.ndarray:
         """Every row of the review data (and holdout file), in the Cases order."""

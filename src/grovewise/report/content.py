@@ -21,6 +21,7 @@ from ..hashing import sha256_of
 from .atomic import write_atomic
 from .document import (Code, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table,
                        Title)
+from ..effects_summary import DISAGREEMENT_ROWS
 from .figures_surrogate import surrogate_tree_figure
 from .html_report import render_html
 from .manifest import build_manifest, deterministic, library_versions, saved_review_entry
@@ -28,7 +29,6 @@ from .pdf_report import render_pdf
 
 DECISION_TEXT = {"pending": "not yet decided", "approve": "approved",
                  "approve_with_conditions": "approved with conditions", "reject": "rejected"}
-MAX_CASE_ROWS = 12
 
 
 def pct(v) -> str:
@@ -409,8 +409,7 @@ def _cases(doc: Document, review) -> None:
                       "of the features their path through the rules tests. " + ROW_NUMBERING))
     if not cases.disagreements.size:
         return
-    conf = cases.proba[cases.disagreements, cases.ensemble[cases.disagreements]]
-    pick = cases.disagreements[np.argsort(-conf, kind="stable")[:MAX_CASE_ROWS]]
+    pick = cases.confident_disagreements(DISAGREEMENT_ROWS)
     X = review.case_rows()
     est = review.surrogate.surrogate
     rows = []
