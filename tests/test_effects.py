@@ -136,3 +136,30 @@ def test_review_effects_on_the_sample_are_rederived(tmp_path):
     for curve in fx.curves:
         for cut in curve.cuts:
             assert cut.statement.startswith("The surrogate")
+
+
+def test_accumulated_local_effects_follow_correlated_data_where_partial_dependence_does_not():
+    """Invented: the model learns p = x0 * x1 on the whole square; the review rows have x1
+    close to x0. Along the data the effect of x0 grows with x0 (its slope is x1, about x0):
+    accumulated local effects show that, while partial dependence averages x1 over values
+    that never occur with that x0 and stays about linear (slope mean(x1)), the difference
+    Apley & Zhu (2020) describe for correlated features."""
+    rng = np.random.default_rng(1)
+    square = rng.uniform(0, 1, (20000, 2))
+    y = (rng.random(20000) < square[:, 0] * square[:, 1]).astype(int)
+    model = RandomForestClassifier(50, min_samples_leaf=100, random_state=0).fit(square, y)
+    forest = gw.from_estimator(model)
+    rng = np.random.default_rng(2)
+    x0 = rng.uniform(0.05, 0.95, 3000)
+    X = np.column_stack([x0, np.clip(x0 + rng.normal(0, 0.02, 3000), 0, 1)])
+    ale = gw.accumulated_local_effects(forest, X, 0, bins=10)
+    pd_ = gw.partial_dependence(forest, X, 0, grid=ale.edges)
+
+    def slope_ratio(values):  # slope over the upper half / slope over the lower half
+        at = lambda v: np.interp(v, ale.edges, values)  # noqa: E731
+        return (at(0.9) - at(0.5)) / (at(0.5) - at(0.1))
+
+    ale_ratio, pd_ratio = slope_ratio(ale.effect[:, 1]), slope_ratio(pd_.average[:, 1])
+    assert ale_ratio > 2.0  # the model's truth along the data: 0.28 / 0.12 = 2.3
+    assert pd_ratio < 1.6  # mean(x1) over both halves: about 1
+    assert ale_ratio > 1.5 * pd_ratio
