@@ -258,15 +258,13 @@ def test_xgboost_pred_interactions(xgb_models, kind):
                                rtol=0, atol=EXACT)
 
 
-def test_lightgbm_pred_contrib_if_a_converter_exists():
-    lgb = pytest.importorskip("lightgbm")
+def test_lightgbm_pred_contrib():
+    import lightgbm as lgb
+
     X, y = load_breast_cancer(return_X_y=True)
     model = lgb.LGBMClassifier(n_estimators=20, num_leaves=15, verbose=-1, n_jobs=1,
                                random_state=0).fit(X, y)
-    try:
-        forest = gw.from_estimator(model)
-    except gw.UnsupportedModelError:
-        pytest.skip("Grovewise has no LightGBM converter (yet): nothing to compare")
+    forest = gw.from_estimator(model)
     c = contributions(forest, X)
     ref = model.predict(X, pred_contrib=True)
     p = forest.n_features
