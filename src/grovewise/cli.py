@@ -18,7 +18,7 @@ from .errors import GrovewiseError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 3
-LONG_COMMANDS = ("review", "demo", "surrogate", "reproduce", "batch", "decide")
+LONG_COMMANDS = ("review", "demo", "surrogate", "reproduce", "batch", "decide", "effects")
 DEMO_TIME_LIMIT = 30.0  # seconds for the demo's solve: the sample reaches its best tree sooner
 
 
@@ -67,6 +67,154 @@ def cmd_anatomy(args) -> int:
     for f in files:
         print(f"  {f}")
     return 0
+
+
+def cmd_effects(args) -> int:
+    """The ensemble's own effects on a seeded sample: contributions, importance, interaction
+    pairs, effect curves; tables (CSV, JSON) and figures (PNG, SVG)."""
+    _warn_if_trusted(args)
+    out = _out_folder(args.out)
+    features = [f.strip() for f in (args.features or "").split(",") if f.strip()] or None
+    with TerminalProgress() as progress:
+        written = _export_effects(args, out, features, progress)
+    print(f"effects of {args.model} on {args.data}")
+    print(f"  sample        {written['sample']}")
+    print(f"  relies on     {written['ranking']} (by mean |contribution|)")
+    for note in written["notes"]:
+        _say(f"  note: {note}", sys.stdout)
+    print(f"wrote {len(written['files'])} files to {out}")
+    for f in written["files"]:
+        print(f"  {f.name}")
+    return 0
+
+
+EFFECTS_ROWS = (10, 100_000)  # as ReviewSettings.effects_rows
+INTERACTION_ROWS = (1, 10_000)  # as ReviewSettings.interaction_rows
+
+
+def _check_range(option: str, value: int, limits: tuple[int, int]) -> None:
+    from .errors import SettingError
+
+    lo, hi = limits
+    if not lo <= value <= hi:
+        raise SettingError(f"{option} {value} is out of range; give a whole number from {lo:,} "
+                           f"to {hi:,}.")
+
+
+def _feature_indices(forest, features) -> list[int] | None:
+    """``--features`` as indices into the model's features, each name checked."""
+    from .errors import SettingError
+
+    if features is None:
+        return None
+    names = list(forest.feature_names)
+    unknown = [f for f in features if f not in names]
+    if unknown:
+        shown = ", ".join(names[:12]) + (", ..." if len(names) > 12 else "")
+        verb = "is" if len(unknown) == 1 else "are"
+        raise SettingError(f"--features: {', '.join(unknown)} {verb} not among the model's "
+                           f"features ({shown}); give names as the model has them, "
+                           "comma-separated.")
+    return list(dict.fromkeys(names.index(f) for f in features))
+
+
+def _export_effects(args, out: Path, features, progress) -> dict:
+    """Compute the effects (grovewise.effects_summary.ensemble_effects: the review's own
+    computation, without a surrogate) and write every table and figure into ``out``."""
+    import numpy as np
+
+    from .analysis.thresholds import threshold_profiles
+    from .effects_summary import ensemble_effects
+    from .loaders import load_data, load_model
+    from .progress import StepMeter
+    from .report.anatomy_files import write_csv, write_json
+    from .report.figure_files import check_dpi, save_figure
+    from .report.figures_effects import effect_curves_figure, interaction_figure
+    from .review import proba_in_blocks
+
+    _check_range("--rows", args.rows, EFFECTS_ROWS)
+    _check_range("--interaction-rows", args.interaction_rows, INTERACTION_ROWS)
+    dpi = check_dpi(args.dpi)
+    progress("effects", 0.0, f"reading the model {Path(args.model).name}")
+    forest = load_model(args.model, trusted=args.trust)
+    chosen = _feature_indices(forest, features)
+    progress("effects", 0.02, f"reading the data {Path(args.data).name}")
+    data = load_data(args.data, forest=forest, target=args.target)
+    X = data.X
+    meter = StepMeter(progress, "effects", X.shape[0], "rows predicted", start=0.03, span=0.05)
+    predicted = np.argmax(proba_in_blocks(forest, X, meter), axis=1)
+    fx, detail = ensemble_effects(
+        forest, X, predicted, threshold_profiles(forest), rows=args.rows,
+        interaction_rows=args.interaction_rows, seed=args.seed, features=chosen,
+        jobs=_jobs(args), progress=lambda f, msg: progress("effects", 0.08 + 0.8 * f, msg))
+    names = list(forest.feature_names)
+    notes = [f"{names[j]} has no values in the sample: no curve for it." for j in (chosen or [])
+             if j not in {c.index for c in fx.curves}]
+    c = detail.contributions
+    outputs = list(c.output_names)
+
+    def column(name: str, o: int) -> str:
+        return name if len(outputs) == 1 else f"{name} [{outputs[o]}]"
+
+    classes = [str(k) for k in forest.classes_]
+    table = []
+    for r, i in enumerate(detail.sample.rows):
+        row = {"row": int(i) + 1, "predicted class": classes[predicted[i]]}
+        for o in range(len(outputs)):
+            row.update({column(n, o): float(c.values[r, j, o]) for j, n in enumerate(names)})
+        row.update({column("base", o): float(c.base[o]) for o in range(len(outputs))})
+        table.append(row)
+    ranking = fx.ranking()
+    importance = [{"feature": n, "mean_abs_contribution": fx.importance[n], "rank": k + 1}
+                  for k, n in enumerate(ranking)]
+    pairs = [{"rank": k + 1, "first": pair.first, "second": pair.second,
+              "mean_abs_interaction": pair.mean_abs} for k, pair in enumerate(detail.all_pairs)]
+    files: list[Path] = []
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        progress("effects", 0.9, "writing the tables")
+        files.append(write_csv(out / "contributions.csv", table))
+        files.append(write_csv(out / "contribution_importance.csv", importance))
+        files.append(write_csv(out / "interaction_pairs.csv", pairs))
+        files.append(write_json(out / "effect_curves.json", {
+            "kind": "effect_curves", "sample": fx.sample, "output": "probability",
+            "classes": classes, "curves": [curve.to_dict() for curve in fx.curves]}))
+        progress("effects", 0.93, "drawing the figures")
+        files.extend(save_figure(effect_curves_figure(fx, max_features=max(len(fx.curves), 1),
+                                                      with_surrogate=False),
+                                 out / "effect_curves", ("png", "svg"), dpi))
+        files.extend(save_figure(interaction_figure(fx, with_surrogate=False),
+                                 out / "interaction_pairs", ("png", "svg"), dpi))
+        files.append(write_json(out / "effects.json", {
+            "kind": "effects", "model": {"file": str(args.model), "kind": forest.kind,
+                                         "n_trees": forest.n_trees, "classes": classes},
+            "data": {"file": str(args.data), "sha256": data.sha256, "n_rows": int(X.shape[0])},
+            "settings": {"rows": args.rows, "interaction_rows": args.interaction_rows,
+                         "seed": args.seed, "features": features, "dpi": dpi},
+            "sample": fx.sample, "interaction_rows": fx.interaction_rows,
+            "output": fx.output, "output_names": outputs,
+            "method": "path-dependent TreeSHAP (Shapley values, exact on the trees)",
+            "importance": fx.importance, "pair_statement": fx.pair_statement,
+            "files": [f.name for f in files]}))
+    except OSError as exc:
+        from .errors import GrovewiseError
+
+        raise GrovewiseError(f"could not write the effects into {out} "
+                             f"({exc.strerror or exc}); choose a folder you can write to, "
+                             "with free space") from None
+    progress("effects", 1.0, f"effects: {len(files)} files written")
+    return {"files": files, "sample": fx.sample["description"],
+            "ranking": ", ".join(ranking[:3]), "notes": notes}
+
+
+def _out_folder(out) -> Path:
+    """``--out``: a folder (created when missing), never an existing file."""
+    from .errors import SettingError
+
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise SettingError(f"--out {out} is a file; give a folder (it is created if missing).")
+    return out
 
 
 class TerminalProgress:
@@ -158,9 +306,8 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     """Run every step with terminal progress, save the review and write the report."""
     import time
 
-    from .analysis.importance import reliance
     from .batch import SAVED_REVIEW, write_review_folder
-    from .report.content import certificate_line
+    from .report.content import certificate_line, reliance_text, review_reliance
     from .weak_spots import weak_spots
 
     start = time.perf_counter()
@@ -178,7 +325,7 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     print(f"  greedy tree   fidelity {_pct(fid['greedy']['train'])} train, "
           f"{_pct(fid['greedy']['holdout'])} holdout (unweighted)")
     print(f"  certificate   {certificate_line(review)}")
-    print(f"  relies on     {reliance(review.anatomy.importance).headline()}")
+    print(f"  relies on     {reliance_text(review_reliance(review))}")
     for spot in weak_spots(review):
         _say(f"  weak spot: {spot.text}", sys.stdout)
     for kind, path in files.items():
@@ -438,7 +585,7 @@ def _add_model_args(p: argparse.ArgumentParser, data: str | None = "optional") -
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="grovewise",
-        description="Review a tree-ensemble classifier: intake, anatomy, proximity, an "
+        description="Review a tree-ensemble classifier: intake, anatomy, effects, proximity, an "
                     "optimal sparse oblique surrogate tree, cases, and a sign-off report.")
     from . import __version__
 
@@ -467,6 +614,32 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--dpi", type=float, default=150, help="resolution of the PNG tree")
     _add_solve_args(p)
     p.set_defaults(func=cmd_surrogate)
+
+    from .effects_summary import EFFECT_FEATURES
+    from .review import ReviewSettings
+
+    d = ReviewSettings()
+    p = sub.add_parser("effects", help="the ensemble's own effects on a seeded sample: "
+                       "contributions, importance, interaction pairs, effect curves")
+    _add_model_args(p, data="required")
+    p.add_argument("--target", help="name of the target column in DATA, if it has one")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for figures and tables")
+    p.add_argument("--rows", type=int, default=d.effects_rows, metavar="N",
+                   help=f"rows the effects are computed on: larger data is sampled (seeded, "
+                   f"stratified by the predicted class; default {d.effects_rows:,})")
+    p.add_argument("--interaction-rows", type=int, default=d.interaction_rows, metavar="N",
+                   help=f"the first N of those rows give the interaction pairs (default "
+                   f"{d.interaction_rows:,})")
+    p.add_argument("--features", metavar="A,B",
+                   help="effect curves of these features (comma-separated; default: the "
+                   f"{EFFECT_FEATURES} the ensemble relies on most by mean |contribution|)")
+    p.add_argument("--seed", type=int, default=d.seed,
+                   help=f"seed of the sample (default {d.seed})")
+    p.add_argument("--jobs", type=int, default=None, metavar="N",
+                   help="CPU cores the contributions use (default: all); results do not "
+                   "depend on it")
+    p.add_argument("--dpi", type=float, default=150, help="resolution of PNG figures")
+    p.set_defaults(func=cmd_effects)
 
     p = sub.add_parser("review", help="the whole review: report, manifest")
     _add_model_args(p, data="required")

@@ -15,6 +15,10 @@ class (``ReviewSettings.effects_rows``; the interactions on the first
 - the feature pairs the ensemble combines most (mean |Shapley interaction|) beside the pairs
   the surrogate puts in one split, in words;
 - the contributions of the disagreement rows shown in the report (the most confident first).
+
+:func:`ensemble_effects` computes everything that needs no surrogate (``grovewise effects``
+uses it alone, and writes its details); :func:`review_effects` adds the surrogate's cuts and
+pairs and the disagreement rows.
 """
 
 from __future__ import annotations
@@ -23,10 +27,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .analysis.contributions import contributions, interaction_ranking, interactions
+from .analysis.contributions import (Contributions, contributions, interaction_ranking,
+                                      interactions)
 from .analysis.effects import (AccumulatedEffects, PartialDependence, accumulated_local_effects,
                                partial_dependence)
-from .sampling import stratified_rows
+from .sampling import RowSample, stratified_rows
 
 EFFECT_FEATURES = 6  # curves for the features the ensemble relies on most
 DISAGREEMENT_ROWS = 12  # disagreement rows explained (the most confident first)
@@ -194,6 +199,105 @@ def _pair_statement(pairs, surrogate_pairs) -> str:
             f"in one split, {verdict}.")
 
 
+@dataclass
+class EffectsDetail:
+    """What :func:`ensemble_effects` computed on the way, kept for exports (``grovewise
+    effects`` writes it) and for tying the curves to a surrogate: the sample, every sampled
+    row's contributions, every feature pair ranked, the sample's medians per feature (an
+    oblique split's other feature is held there), and per curve the change of its partial
+    dependence per grid interval."""
+
+    sample: RowSample
+    contributions: Contributions
+    all_pairs: list  # InteractionPair, every pair, strongest first
+    medians: np.ndarray
+    changes: list  # per curve of the result, ndarray (n_grid - 1,)
+
+
+def _medians(Xs: np.ndarray) -> np.ndarray:
+    with np.errstate(all="ignore"):
+        return np.array([np.nanmedian(Xs[:, j]) if np.any(~np.isnan(Xs[:, j])) else 0.0
+                         for j in range(Xs.shape[1])])
+
+
+def ensemble_effects(forest, X: np.ndarray, predicted: np.ndarray, thresholds, *, rows: int,
+                     interaction_rows: int, seed: int, features=None, progress=None,
+                     cancel=None, jobs=None) -> tuple[EffectsResult, EffectsDetail]:
+    """The ensemble's own effects on a seeded sample, without a surrogate (see the module).
+
+    ``X`` are the rows and ``predicted`` the model's class index per row (the sample is
+    stratified by it); ``thresholds`` the threshold profiles of the forest (or None);
+    ``features`` the features to draw curves for (indices, in that order), by default the
+    ``EFFECT_FEATURES`` the ensemble relies on most by mean |contribution|. The result has
+    no surrogate cuts, pairs or explained cases; :func:`review_effects` adds them.
+    ``progress(fraction, message)`` hears of each part.
+    """
+    say = progress or (lambda *_: None)
+    sample = stratified_rows(predicted, X.shape[0], rows, seed)
+    Xs = X[sample.rows]
+    names = list(forest.feature_names)
+    what = f"contributions (TreeSHAP) on {sample.describe()}"
+    say(0.05, what)
+    c = contributions(forest, Xs, jobs=jobs, cancel=cancel,
+                      progress=lambda done, total: say(0.05 + 0.3 * done / max(total, 1),
+                                                       f"{what}: {done:,}/{total:,} rows"))
+    mean_abs = np.abs(c.values).mean(axis=0).sum(axis=1)
+    importance = {n: float(v) for n, v in zip(names, mean_abs)}
+    n_int = min(interaction_rows, Xs.shape[0])
+    what = f"interactions on {n_int:,} of the sampled rows"
+    say(0.35, what)
+    inter = interactions(forest, Xs[:n_int], jobs=jobs, cancel=cancel,
+                         progress=lambda done, total: say(0.35 + 0.25 * done / max(total, 1),
+                                                          f"{what}: {done:,}/{total:,} rows"))
+    all_pairs = interaction_ranking(inter, names)
+    pairs = all_pairs[:TOP_PAIRS]
+    medians = _medians(Xs)
+    if features is None:
+        order = [int(j) for j in np.argsort(-mean_abs, kind="stable") if mean_abs[j] > 0]
+        chosen = order[:EFFECT_FEATURES]
+    else:
+        chosen = [int(j) for j in features]
+    curves, changes = [], []
+    for n_done, j in enumerate(chosen):
+        say(0.6 + 0.3 * n_done / max(len(chosen), EFFECT_FEATURES), f"effect curves of {names[j]}")
+        if not np.any(~np.isnan(Xs[:, j])):
+            continue
+        pd_ = partial_dependence(forest, Xs, j)
+        ale = None if forest.is_categorical(j) or np.unique(Xs[~np.isnan(Xs[:, j]), j]).size < 2 \
+            else accumulated_local_effects(forest, Xs, j)
+        k, steepest, change = _steepest(pd_)
+        prof = None if thresholds is None else thresholds.features[j]
+        curves.append(FeatureEffect(
+            feature=names[j], index=j, importance=float(mean_abs[j]), partial=pd_,
+            accumulated=ale, class_index=k, steepest=steepest,
+            ensemble_cuts=np.zeros(0) if prof is None else prof.cuts,
+            ensemble_cut_counts=np.zeros(0, dtype=np.int64) if prof is None else prof.counts))
+        changes.append(change)
+    strongest = ", ".join(f"{p.first} & {p.second}" for p in pairs[:3])
+    statement = (f"The ensemble combines {strongest} most." if pairs else
+                 "The ensemble shows no interaction on the sample.")
+    result = EffectsResult(sample=sample.to_dict(), interaction_rows=int(n_int), output=c.output,
+                           output_names=list(c.output_names), importance=importance,
+                           curves=curves, pairs=pairs, surrogate_pairs=[],
+                           pair_statement=statement, case_rows=np.zeros(0, dtype=np.int64),
+                           case_base=c.base, case_values=np.zeros((0, len(names),
+                                                                   c.base.shape[0])))
+    return result, EffectsDetail(sample=sample, contributions=c, all_pairs=all_pairs,
+                                 medians=medians, changes=changes)
+
+
+def _surrogate_pairs(est, names: list[str]) -> list:
+    """The feature pairs that share one split of the surrogate, in the order of its rules."""
+    out = []
+    for rule in est.rules_list_:
+        feats = [names[f] for f in rule.features]
+        for a in range(len(feats)):
+            for b in range(a + 1, len(feats)):
+                if [feats[a], feats[b]] not in out:
+                    out.append([feats[a], feats[b]])
+    return out
+
+
 def review_effects(forest, X: np.ndarray, predicted: np.ndarray, est, thresholds, *,
                    rows: int, interaction_rows: int, seed: int, case_rows: np.ndarray,
                    case_X: np.ndarray, progress=None, cancel=None, jobs=None) -> EffectsResult:
@@ -205,56 +309,21 @@ def review_effects(forest, X: np.ndarray, predicted: np.ndarray, est, thresholds
     to explain and their values.
     """
     say = progress or (lambda *_: None)
-    sample = stratified_rows(predicted, X.shape[0], rows, seed)
-    Xs = X[sample.rows]
+    fx, detail = ensemble_effects(forest, X, predicted, thresholds, rows=rows,
+                                  interaction_rows=interaction_rows, seed=seed,
+                                  progress=say, cancel=cancel, jobs=jobs)
     names = list(forest.feature_names)
-    say(0.05, f"contributions (TreeSHAP) on {sample.describe()}")
-    c = contributions(forest, Xs, jobs=jobs, cancel=cancel)
-    mean_abs = np.abs(c.values).mean(axis=0).sum(axis=1)
-    importance = {n: float(v) for n, v in zip(names, mean_abs)}
-    n_int = min(interaction_rows, Xs.shape[0])
-    say(0.35, f"interactions on {n_int:,} of the sampled rows")
-    inter = interactions(forest, Xs[:n_int], jobs=jobs, cancel=cancel)
-    pairs = interaction_ranking(inter, names)[:TOP_PAIRS]
-    with np.errstate(all="ignore"):
-        medians = np.array([np.nanmedian(Xs[:, j]) if np.any(~np.isnan(Xs[:, j])) else 0.0
-                            for j in range(Xs.shape[1])])
-    order = [int(j) for j in np.argsort(-mean_abs, kind="stable") if mean_abs[j] > 0]
-    curves = []
-    for n_done, j in enumerate(order[:EFFECT_FEATURES]):
-        say(0.6 + 0.3 * n_done / EFFECT_FEATURES, f"effect curves of {names[j]}")
-        if not np.any(~np.isnan(Xs[:, j])):
-            continue
-        pd_ = partial_dependence(forest, Xs, j)
-        ale = None if forest.is_categorical(j) or np.unique(Xs[~np.isnan(Xs[:, j]), j]).size < 2 \
-            else accumulated_local_effects(forest, Xs, j)
-        k, steepest, change = _steepest(pd_)
-        prof = None if thresholds is None else thresholds.features[j]
-        effect = FeatureEffect(
-            feature=names[j], index=j, importance=float(mean_abs[j]), partial=pd_,
-            accumulated=ale, class_index=k, steepest=steepest,
-            ensemble_cuts=np.zeros(0) if prof is None else prof.cuts,
-            ensemble_cut_counts=np.zeros(0, dtype=np.int64) if prof is None else prof.counts)
-        if est is not None:
-            effect.cuts = _surrogate_cuts(est, j, names, medians, effect, change)
-        curves.append(effect)
     surrogate_pairs = []
     if est is not None:
-        for rule in est.rules_list_:
-            feats = [names[f] for f in rule.features]
-            for a in range(len(feats)):
-                for b in range(a + 1, len(feats)):
-                    if [feats[a], feats[b]] not in surrogate_pairs:
-                        surrogate_pairs.append([feats[a], feats[b]])
+        for effect, change in zip(fx.curves, detail.changes):
+            effect.cuts = _surrogate_cuts(est, effect.index, names, detail.medians, effect,
+                                          change)
+        surrogate_pairs = _surrogate_pairs(est, names)
+    fx.surrogate_pairs = surrogate_pairs
+    fx.pair_statement = _pair_statement(fx.pairs, surrogate_pairs)
     say(0.95, f"contributions of {len(case_rows)} disagreement rows")
     if len(case_rows):
         cc = contributions(forest, case_X, jobs=jobs, cancel=cancel)
-        case_base, case_values = cc.base, cc.values
-    else:
-        case_base, case_values = c.base, np.zeros((0, len(names), c.base.shape[0]))
-    return EffectsResult(sample=sample.to_dict(), interaction_rows=int(n_int), output=c.output,
-                         output_names=list(c.output_names), importance=importance,
-                         curves=curves, pairs=pairs, surrogate_pairs=surrogate_pairs,
-                         pair_statement=_pair_statement(pairs, surrogate_pairs),
-                         case_rows=np.asarray(case_rows, dtype=np.int64), case_base=case_base,
-                         case_values=case_values)
+        fx.case_base, fx.case_values = cc.base, cc.values
+    fx.case_rows = np.asarray(case_rows, dtype=np.int64)
+    return fx

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from . import figures_anatomy as fa
+from . import figures_effects as fe
 from ..cautions import CAUTIONS
 from ..hashing import sha256_of
 from .atomic import write_atomic
@@ -69,6 +70,7 @@ def review_document(review, date: _dt.datetime | None = None) -> Document:
     _anatomy(doc, review)
     _proximity(doc, review)
     _surrogate(doc, review)
+    _effects(doc, review)
     _cases(doc, review)
     _limitations(doc, review)
     _reproduce(doc, review)
@@ -118,20 +120,59 @@ def certificate_line(review) -> str:
             f"{_num(cert.get('bound'), 5)}, gap {_num(cert.get('gap'), 3)}; {covers}")
 
 
-def _summary(doc: Document, review) -> None:
+CONTRIBUTION_MEASURE = "mean |contribution|"  # its name among the importance measures
+
+
+def effects_of(review):
+    """The review's saved effects (an EffectsResult), or None for a review saved before the
+    cases step computed them."""
+    cases = review.cases
+    return None if cases is None else getattr(cases, "effects", None)
+
+
+def contribution_ranks(review) -> np.ndarray | None:
+    """Each feature's rank by mean |contribution| in the saved effects (1 = largest, ties
+    share the best rank), in the order of the model's features; None without effects."""
+    from ..analysis.importance import importance_ranks
+
+    fx = effects_of(review)
+    if fx is None:
+        return None
+    names = review.anatomy.importance.feature_names
+    return importance_ranks(np.array([fx.importance.get(n, 0.0) for n in names]))
+
+
+def review_reliance(review):
+    """What the model relies on most: impurity and permutation importance, and the mean
+    |contribution| (Shapley values) when the review has its effects."""
     from ..analysis.importance import reliance
+
+    ranks = contribution_ranks(review)
+    return reliance(review.anatomy.importance,
+                    extra=None if ranks is None else {CONTRIBUTION_MEASURE: ranks})
+
+
+def reliance_text(relies, k: int = 3) -> str:
+    """``"a, b, c (by the mean rank of impurity importance, permutation importance and mean
+    |contribution|)"``."""
+    m = list(relies.measures)
+    by = m[0] if len(m) == 1 else f"{', '.join(m[:-1])} and {m[-1]}"
+    return f"{', '.join(relies.top(k))} (by the mean rank of {by})"
+
+
+def _summary(doc: Document, review) -> None:
     from ..weak_spots import weak_spots
 
     s, intake, sur = review.intake.summary, review.intake, review.surrogate
     fid = sur.fidelity
-    relies = reliance(review.anatomy.importance)
+    relies = review_reliance(review)
     rows = [
         ("Model", f"{s.kind.replace('_', ' ')} ({s.library}), {s.n_trees} trees, depth "
                   f"{s.depth_min} to {s.depth_max}, classes {', '.join(map(str, s.classes))}"),
         ("Review data", f"{s.rows} rows, {s.n_features} features; surrogate fit on "
                         f"{intake.train_rows.size} rows, holdout {_holdout_text(review)}"),
         ("Exactness", intake.exactness.text()),
-        ("Relies most on", relies.headline()),
+        ("Relies most on", reliance_text(relies)),
         ("Surrogate", f"{_depth_text(review)}, fidelity (unweighted) "
                       f"{_fidelity_text(fid, 'train', review)} train / "
                       f"{_fidelity_text(fid, 'holdout', review)} holdout"),
@@ -205,11 +246,7 @@ def _intake(doc: Document, review) -> None:
         doc.add(Paragraph(note, "note"))
 
 
-def value_text(forest, j: int, v: float) -> str:
-    """A row's value of feature ``j`` as the data gives it: a category by its name."""
-    if forest.is_categorical(j):
-        return forest.category_name(j, v)
-    return "missing" if v != v else f"{v:.4g}"
+value_text = fe.value_text  # a row's value as the data gives it (a category by name)
 
 
 def _model_inputs(doc: Document, summary) -> None:
@@ -262,6 +299,10 @@ def sample_rows(review) -> list[list[str]]:
         if points:
             rows.append(["Surrogate: the program", f"{int(points):,} representative points "
                          "(weighted) of the training rows"])
+    fx = effects_of(review)
+    if fx is not None:
+        add("Effects: contributions, importance and curves", fx.sample, n)
+        rows.append(["Effects: interactions", _interaction_rows_text(fx)])
     return rows
 
 
@@ -384,6 +425,126 @@ def _surrogate(doc: Document, review) -> None:
                       "fidelity measured above, on training and holdout rows.", "note"))
 
 
+IMPORTANCE_ROWS = 20  # features in the Effects section's importance table at most
+
+
+def _interaction_rows_text(fx) -> str:
+    n, size = int(fx.interaction_rows), int(fx.sample.get("size", 0))
+    return ("every row of the effects' sample" if n >= size else
+            f"the first {n:,} of the effects' sample rows")
+
+
+def _effects_sample_sentence(fx) -> str:
+    """Which rows the effects were computed on, in one sentence."""
+    n, size = int(fx.interaction_rows), int(fx.sample.get("size", 0))
+    pairs = "on all of them" if n >= size else f"on the first {n:,} of them"
+    return (f"Computed on {fx.sample.get('description', f'{size:,} rows')}; the interactions "
+            f"{pairs}.")
+
+
+def _output_text(fx) -> str:
+    if fx.output == "probability":
+        return ("the ensemble's predicted probability of each class (an averaging forest: "
+                "the contributions of a row add up, with the base, to its probabilities)")
+    return ("the ensemble's raw margin (log-odds) before the logistic or softmax link (a "
+            "boosted model: the contributions of a row add up, with the base, to its margin)")
+
+
+def _effects(doc: Document, review) -> None:
+    fx = effects_of(review)
+    if fx is None:
+        return
+    flags = _flags(review)
+    doc.add(PageBreak(), Heading("Effects: what the ensemble does with its features"))
+    doc.add(Paragraph(
+        "These figures read the ensemble itself, not the surrogate. A feature's contribution "
+        "to a row's output is its Shapley value, computed exactly on the trees with "
+        "path-dependent TreeSHAP (Lundberg, Erion & Lee 2018); the output explained is "
+        f"{_output_text(fx)}. The pairs the ensemble combines are ranked by Shapley "
+        "interaction values (Lundberg et al. 2020). The curves are partial dependence "
+        "(Friedman 2001) and accumulated local effects (Apley & Zhu 2020), both in predicted "
+        "probability. " + _effects_sample_sentence(fx)))
+    _effects_importance(doc, review, fx)
+    doc.add(Figure(fe.effect_curves_figure(fx, flags), width=1.0,
+                   caption=f"Effect curves of the {len(fx.curves)} features the ensemble "
+                           "relies on most by mean |contribution|, with its own cut points and "
+                           "the surrogate's cuts"))
+    untested = []
+    for curve in fx.curves:
+        if curve.cuts:
+            doc.add(Paragraph(" ".join(cut.statement for cut in curve.cuts)))
+        else:
+            untested.append(curve.feature)
+    if untested:
+        doc.add(Paragraph(f"The surrogate does not test {_and(untested)}."))
+    doc.add(Figure(fe.interaction_figure(fx, flags), width=1.0,
+                   caption="The feature pairs the ensemble combines most, and the pairs the "
+                           "surrogate puts in one split"))
+    doc.add(Paragraph(fx.pair_statement))
+
+
+def _and(names: list[str]) -> str:
+    return names[0] if len(names) == 1 else f"{', '.join(names[:-1])} or {names[-1]}"
+
+
+def _effects_importance(doc: Document, review, fx) -> None:
+    imp = review.anatomy.importance
+    names = list(imp.feature_names)
+    ranks = contribution_ranks(review)
+    order = np.lexsort((np.arange(len(names)), ranks))
+    rows = []
+    for j in order[:IMPORTANCE_ROWS]:
+        row = [names[j], float(fx.importance[names[j]]), int(ranks[j]), float(imp.impurity[j]),
+               int(imp.impurity_rank[j])]
+        if imp.has_permutation:
+            row += [float(imp.permutation_mean[j]), int(imp.permutation_rank[j])]
+        rows.append(row)
+    header = ["feature", "mean |contribution|", "rank", "impurity", "rank"]
+    formats = [None, ".4f", None, ".4f", None]
+    if imp.has_permutation:
+        header += ["permutation (mean)", "rank"]
+        formats += [".4f", None]
+    more = len(names) - len(rows)
+    doc.add(Table(header, rows, formats=formats,
+                  caption="Global importance: mean |contribution| over the sampled rows (summed "
+                          "over the outputs) beside impurity and permutation importance"
+                          + (f"; {more} features of lower rank are not listed" if more else "")))
+    doc.add(Paragraph(f"The ensemble relies most on {reliance_text(review_reliance(review))}."))
+
+
+def _case_contributions(doc: Document, review, fx) -> None:
+    """The explained disagreement rows: each row's three largest contributions, and the most
+    confident row as a figure."""
+    if fx is None or not len(fx.case_rows):
+        return
+    forest, X = review.forest, review.case_rows()
+    names = list(forest.feature_names)
+    rows, quantities = [], set()
+    for c, i in enumerate(fx.case_rows):
+        o = fe.case_output(fx, c)
+        v = fx.case_values[c][:, o]
+        quantities.add(fe.output_label(fx, o))
+        top = [int(j) for j in np.argsort(-np.abs(v), kind="stable")[:3]]
+        cells = [f"{names[j]} = {value_text(forest, j, X[i, j])}: "
+                 + f"{v[j]:+.3f}".replace("-", "\u2212") for j in top]
+        rows.append([int(i) + 1, str(fx.output_names[o]), float(fx.case_base[o] + v.sum())]
+                    + cells + [None] * (3 - len(cells)))
+    what = ("probability of its class" if fx.output == "probability" else
+            next(iter(quantities)) if len(quantities) == 1 else "margin of its class")
+    doc.add(Table(["row", "ensemble's class" if fx.output == "probability" else "output",
+                   "base + contributions", "largest contribution", "second", "third"], rows,
+                  caption=f"What moves the ensemble on these rows: the three largest "
+                          f"contributions (Shapley values) to the ensemble's {what}, each as "
+                          "feature = the row's value: contribution",
+                  formats=[None, None, ".3f", None, None, None]))
+    first = int(fx.case_rows[0])
+    doc.add(Figure(fe.case_contributions_figure(fx, forest, X[first], 0,
+                                                row_label=f"Row {first + 1}",
+                                                flags=_flags(review)), width=1.0,
+                   caption=f"Row {first + 1}, the disagreement where the ensemble is most "
+                           "confident: its largest contributions"))
+
+
 def path_features(est, leaf: int) -> list[int]:
     """The features the splits on the path from the root to ``leaf`` use, root first."""
     tree = est.tree_
@@ -424,6 +585,7 @@ def _cases(doc: Document, review) -> None:
                    "features on its path"], rows,
                   caption="Disagreements (most confident first)",
                   formats=[None, None, None, ".3f", None, None, None]))
+    _case_contributions(doc, review, effects_of(review))
 
 
 def _limitations(doc: Document, review) -> None:
@@ -436,6 +598,12 @@ def _limitations(doc: Document, review) -> None:
              "although boosted trees model residuals rather than the class.",
              "Impurity importance favours features with many distinct values (Strobl et al. "
              "2007); read it beside permutation importance."]
+    if effects_of(review) is not None:
+        items.append("Contributions and effect curves describe what the model does with its "
+                     "inputs, not causes in the data. Partial dependence averages over rows "
+                     "with the feature set to values that may not occur together with their "
+                     "other features; accumulated local effects only move rows within their "
+                     "own interval (Apley & Zhu 2020), so read the two together.")
     for text in items:
         doc.add(Paragraph(text, "caution" if text is CAUTIONS else "body"))
 
@@ -456,7 +624,7 @@ def _reproduce(doc: Document, review) -> None:
     doc.add(KeyValues(settings, caption="Settings"))
     doc.add(KeyValues(list(library_versions().items()), caption="Library versions"))
     doc.add(Paragraph(f"Seed {st.seed} drives the holdout split, permutation importance, the "
-                      "proximity sample and the surrogate.", "note"))
+                      "proximity sample, the surrogate and the effects' sample.", "note"))
 
 
 def _signoff(doc: Document, review) -> None:
