@@ -5,6 +5,11 @@ the views' workers, so the window and the report show the same pictures and a fo
 hundreds of deep trees never holds up the window. Hovering a cell, box, strip or bar shows its
 numbers. Ticking a feature as protected or forbidden updates the flag statements and every
 figure.
+
+Once the cases step has run, the ensemble's own effects join them (its
+:class:`~grovewise.effects_summary.EffectsResult`): importance by mean |contribution| in a
+table beside impurity and permutation importance, and the effect curves of the top features
+with the surrogate's cuts drawn on them, each cut with its sentence.
 """
 
 from __future__ import annotations
@@ -12,12 +17,14 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
-from PySide6.QtCore import QTimer
-from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QGridLayout, QHBoxLayout,
-                               QLabel, QVBoxLayout, QWidget)
+from PySide6.QtCore import Qt, QTimer
+from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QFileDialog,
+                               QGridLayout, QHBoxLayout, QHeaderView, QLabel, QTableWidget,
+                               QTableWidgetItem, QVBoxLayout, QWidget)
 
 from ...analysis.flags import check_flags, flag_report
 from ...report import figures_anatomy as figs
+from ...report.figures_effects import effect_curves_figure
 from ..theme import flag_style
 from ..widgets import Card, FigureView, wrapped
 from .base import Page
@@ -113,8 +120,9 @@ def strips_hover(profiles, flags):
     return hover
 
 
-def importance_hover(cmp, flags, fig):
-    """Hover text for the importance bars."""
+def importance_hover(cmp, flags, fig, effects=None):
+    """Hover text for the importance bars (with the mean |contribution| once the cases step
+    has run)."""
     labels = _labels(cmp.feature_names, flags)
     first = fig.axes[0] if fig.axes else None
 
@@ -131,8 +139,28 @@ def importance_hover(cmp, flags, fig):
         if cmp.has_permutation:
             text += (f"\npermutation importance {cmp.permutation_mean[j]:.4f} ± "
                      f"{cmp.permutation_std[j]:.4f} (rank {int(cmp.permutation_rank[j])})")
+        if effects is not None and cmp.feature_names[j] in effects.importance:
+            ranks = contribution_ranks(effects)
+            text += (f"\nmean |contribution| {effects.importance[cmp.feature_names[j]]:.4g} "
+                     f"(rank {ranks[cmp.feature_names[j]]})")
         return text
     return hover
+
+
+def contribution_ranks(effects) -> dict[str, int]:
+    """Each feature's rank by mean |contribution| (1 = largest; ties by feature order)."""
+    return {name: r + 1 for r, name in enumerate(effects.ranking())}
+
+
+def effects_of(review):
+    """The review's effects (from the cases step), or None."""
+    cases = review.cases if review is not None else None
+    return getattr(cases, "effects", None) if cases is not None else None
+
+
+def output_words(effects) -> str:
+    return ("probability, summed over the classes" if effects.output == "probability"
+            else "margin (log-odds), summed over the outputs")
 
 
 def comparison_hover(cmp, flags, fig):
@@ -150,6 +178,15 @@ def comparison_hover(cmp, flags, fig):
                 f"{cmp.labels[0]}: {cmp.shares_a[j, c]:.1%}   {cmp.labels[1]}: "
                 f"{cmp.shares_b[j, c]:.1%}\nchange {100 * cmp.share_difference[j, c]:+.1f} points")
     return hover
+
+
+def cut_sentences(effects) -> str:
+    """Each surrogate cut on an effect curve in words, then the top features it leaves out."""
+    lines = [f"• {cut.statement}" for curve in effects.curves for cut in curve.cuts]
+    uncut = [curve.feature for curve in effects.curves if not curve.cuts]
+    if uncut:
+        lines.append(f"The surrogate does not split on {', '.join(uncut)}.")
+    return "\n".join(lines)
 
 
 # ---------------------------------------------------------------------------- the page
@@ -257,6 +294,8 @@ class AnatomyPage(Page):
         for k, v in self.views.items():
             right.addWidget(v)
         self.views["comparison"].setVisible(False)
+        right.insertWidget(right.indexOf(self.views["importance"]) + 1, self._measures_card())
+        right.insertWidget(right.indexOf(self.measures_card) + 1, self._curves_card())
         self.body_layout.addLayout(right)
         self.body_layout.addStretch(1)
         self._redraw_timer = QTimer(self)
@@ -265,12 +304,43 @@ class AnatomyPage(Page):
         self._redraw_timer.timeout.connect(self.redraw)
         self._drawn_for = None
         self._filled_for = None
+        self._effects_for: tuple = ()
+
+    def _measures_card(self) -> Card:
+        self.measures_card = Card("Importance, three ways", note="Impurity importance comes "
+                                  "from the training splits, permutation importance from "
+                                  "shuffling a column of the review data, mean |contribution| "
+                                  "from the ensemble's own output row by row. Where their "
+                                  "ranks part, look at that feature closely.")
+        self.measures_note = wrapped("", muted=True)
+        self.measures = QTableWidget(0, 4)
+        self.measures.setHorizontalHeaderLabels(["feature", "impurity (rank)",
+                                                 "permutation (rank)",
+                                                 "mean |contribution| (rank)"])
+        self.measures.verticalHeader().setVisible(False)
+        self.measures.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
+        self.measures.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.Stretch)
+        self.measures.setMaximumWidth(900)
+        self.measures_card.body.addWidget(self.measures_note)
+        self.measures_card.body.addWidget(self.measures)
+        return self.measures_card
+
+    def _curves_card(self) -> Card:
+        self.curves_card = Card("What the ensemble does with its top features")
+        self.curves_note = wrapped("", muted=True)
+        self.curves_view = FigureView()
+        self.cut_sentences = wrapped("")
+        for w in (self.curves_note, self.curves_view, self.cut_sentences):
+            self.curves_card.body.addWidget(w)
+        return self.curves_card
 
     # ------------------------------------------------------------------ state
     def reset(self) -> None:
         self.comparison = None
         self._drawn_for = None
         self._filled_for = None
+        self._effects_for = ()
+        self.curves_view.clear()
         for view in self.views.values():
             view.clear()
         self.views["comparison"].setVisible(False)
@@ -297,6 +367,7 @@ class AnatomyPage(Page):
             v.setVisible(has and (v is not self.views["comparison"] or self.comparison is not None))
         if has and self._drawn_for is not r.anatomy:
             self.redraw()
+        self.show_effects()
 
     def _flags_changed(self, flags: dict[str, str]) -> None:
         r = self.review
@@ -332,8 +403,9 @@ class AnatomyPage(Page):
                                      lambda fig: position_hover(a.position_usage))
         views["strips"].show_built(lambda: figs.threshold_strips_figure(a.thresholds, flags=flags),
                                    lambda fig: strips_hover(a.thresholds, flags))
-        views["importance"].show_built(lambda: figs.importance_figure(a.importance, flags),
-                                       lambda fig: importance_hover(a.importance, flags, fig))
+        views["importance"].show_built(
+            lambda: figs.importance_figure(a.importance, flags),
+            lambda fig: importance_hover(a.importance, flags, fig, effects_of(r)))
         cmp = self.comparison
         if cmp is not None:
             views["comparison"].show_built(lambda: figs.comparison_figure(cmp, flags),
@@ -341,6 +413,76 @@ class AnatomyPage(Page):
         self.statements.setText("\n".join(f.statement() for f in a.flags.features)
                                 or "No feature is flagged.")
         self._drawn_for = a
+        self.show_effects()
+
+    # ------------------------------------------------------------------ effects
+    def show_effects(self) -> None:
+        """The importance table and the effect curves, for the review's anatomy and effects
+        (drawn again only when either, or the flags, changed)."""
+        r = self.review
+        a = r.anatomy if r is not None else None
+        eff = effects_of(r)
+        show = a is not None or eff is not None
+        self.measures_card.setVisible(show)
+        self.curves_card.setVisible(show)
+        flags = self.flags()
+        key = (a, eff, tuple(sorted(flags.items())))
+        if not show or (len(self._effects_for) == 3 and key[0] is self._effects_for[0]
+                        and key[1] is self._effects_for[1] and key[2] == self._effects_for[2]):
+            return
+        self._effects_for = key
+        self._fill_measures(a.importance if a is not None else None, eff, flags)
+        view = self.views["importance"]
+        if a is not None and view.figure is not None:  # the hover tells the third measure too
+            view.hover = importance_hover(a.importance, flags, view.figure, eff)
+        if eff is None:
+            self.curves_note.setText("")
+            self.curves_view.set_message("The effect curves appear after the cases step "
+                                         "(run it on the Cases page: Ctrl+R there).")
+            self.cut_sentences.setText("")
+            return
+        self.curves_note.setText(f"From the cases step, on "
+                                 f"{eff.sample.get('description', 'a sample of the rows')}. "
+                                 "The surrogate's cuts are drawn where they fall; each one in "
+                                 "words under the figure.")
+        self.curves_view.show_built(lambda: effect_curves_figure(eff, flags))
+        self.cut_sentences.setText(cut_sentences(eff))
+
+    def _fill_measures(self, cmp, eff, flags) -> None:
+        names = list(cmp.feature_names if cmp is not None else eff.importance)
+        if eff is not None:
+            order, ranks = eff.ranking(), contribution_ranks(eff)
+            self.measures_note.setText(
+                f"Mean |contribution|: the average size of each feature's exact Shapley value "
+                f"(TreeSHAP) over {eff.sample.get('description', 'the sample')}, in "
+                f"{output_words(eff)}. Rows by mean |contribution|.")
+        else:
+            order = [names[j] for j in np.lexsort((np.arange(len(names)), cmp.impurity_rank))]
+            ranks = {}
+            self.measures_note.setText("Mean |contribution| appears after the cases step (run "
+                                       "it on the Cases page). Rows in impurity order.")
+        self.measures.setRowCount(len(order))
+        for i, name in enumerate(order):
+            cells = [figs.flag_label(name, flags, 40), "—", "—",
+                     f"{eff.importance[name]:.4g} (#{ranks[name]})" if eff is not None
+                     else "after the cases step"]
+            if cmp is not None and name in cmp.feature_names:
+                j = cmp.feature_names.index(name)
+                cells[1] = f"{cmp.impurity[j]:.4f} (#{int(cmp.impurity_rank[j])})"
+                if cmp.has_permutation:
+                    cells[2] = (f"{cmp.permutation_mean[j]:.4f} ± {cmp.permutation_std[j]:.4f} "
+                                f"(#{int(cmp.permutation_rank[j])})")
+            for c, text in enumerate(cells):
+                item = QTableWidgetItem(text)
+                item.setData(Qt.ItemDataRole.UserRole, name)
+                if c:
+                    item.setTextAlignment(Qt.AlignmentFlag.AlignRight
+                                          | Qt.AlignmentFlag.AlignVCenter)
+                self.measures.setItem(i, c, item)
+        shown = min(len(order), 20)  # taller tables scroll
+        self.measures.setFixedHeight(self.measures.horizontalHeader().height()
+                                     + 2 * self.measures.frameWidth() + 2
+                                     + sum(self.measures.rowHeight(i) for i in range(shown)))
 
     # ------------------------------------------------------------------ second model
     def ask_second_model(self) -> None:

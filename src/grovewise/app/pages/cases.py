@@ -1,12 +1,15 @@
 """Cases: one record at a time. A searchable, filterable table of every row; for the chosen
-row the ensemble's probabilities and the surrogate's path with each rule's terms evaluated;
-and the list of rows where the two disagree."""
+row the ensemble's probabilities and the surrogate's path with each rule's terms evaluated,
+beside what drives the ensemble there (the row's exact contributions); and the list of rows
+where the two disagree."""
 
 from __future__ import annotations
 
 import html
 import math
 import re
+import time
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -14,9 +17,11 @@ from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt
 from PySide6.QtGui import QKeySequence, QShortcut
 from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFrame, QHeaderView, QHBoxLayout,
                                QLabel, QLineEdit, QListWidget, QListWidgetItem, QScrollArea,
-                               QSplitter, QStyleOptionViewItem, QTableView)
+                               QSplitter, QStyleOptionViewItem, QTableView, QTextBrowser)
 
 from .. import theme
+from ...analysis.contributions import OUTPUT_PROBABILITY, contributions
+from ...report.figures_effects import value_text
 from ..paths import surrogate_path
 from ..widgets import Card, wrapped
 from ..workers import LatestCall
@@ -26,6 +31,10 @@ PARTS = {0: "fit on", 1: "held out", 2: "holdout file"}
 SORT_ROLE = Qt.ItemDataRole.UserRole
 DISAGREEMENTS_SHOWN = 500
 FIT_ROWS = 60  # column widths fit the texts of this many rows
+CONTRIBUTIONS_SHOWN = 8  # a row's features with the largest contributions, by size
+CONTRIBUTIONS_KEPT = 4096  # rows whose contributions the page keeps (the latest chosen)
+INLINE_LIMIT_S = 0.02  # a row explained faster than this (last measured) is explained at once
+BAR_CELLS = 8  # the longest contribution bar, in spaces (on either side of the axis)
 _CONDITION = re.compile(r"^\s*([A-Za-z_][\w.]*)\s*(<=|>=|==|=|<|>|!=)\s*(-?[\d.]+(?:e-?\d+)?)\s*$")
 
 
@@ -90,6 +99,115 @@ def category_column(forest, j: int, name: str, codes: np.ndarray) -> Column:
     values = np.where(np.isnan(codes), k, k + 1).astype(np.int64)
     values[valid] = codes[valid].astype(np.int64)
     return Column(name, "text", values, names + ["missing", "other"])
+
+
+# ---------------------------------------------------------------------------- contributions
+@dataclass
+class RowContributions:
+    """One row's exact contributions (Shapley values, :mod:`grovewise.analysis.contributions`):
+    ``values`` per feature and output, the ``base`` value per output, what the outputs are
+    (``output``: probability or margin) and the seconds it took (None: from the cases step)."""
+
+    values: np.ndarray  # (n_features, n_outputs)
+    base: np.ndarray  # (n_outputs,)
+    output: str
+    output_names: list[str]
+    seconds: float | None = None
+
+    @property
+    def explained(self) -> np.ndarray:
+        """The output explained: ``base`` plus every contribution."""
+        return self.base + self.values.sum(axis=0)
+
+
+def explain_row(forest, x: np.ndarray) -> RowContributions:
+    """The contributions of row ``x``, timed (one thread: one row gains nothing from more)."""
+    start = time.perf_counter()
+    c = contributions(forest, np.asarray(x, dtype=np.float64)[None, :], jobs=1)
+    return RowContributions(c.values[0], c.base, c.output, list(c.output_names),
+                            time.perf_counter() - start)
+
+
+def explained_output(rc: RowContributions, ensemble_class: int) -> tuple[int, int]:
+    """(column, sign): the output that reads the ensemble's class, and +1 when a positive
+    contribution pushes the row towards that class (-1: a binary margin and the first class)."""
+    if rc.values.shape[1] == 1:  # the margin of the second class, before the logistic
+        return 0, (1 if ensemble_class == 1 else -1)
+    return int(ensemble_class), 1
+
+
+def _bar(width: int, colour: str) -> str:
+    return f"<span style='background:{colour};'>{'&nbsp;' * width}</span>" if width else ""
+
+
+def contributions_html(forest, x: np.ndarray, rc: RowContributions, ensemble_class: int,
+                       surrogate_class: int, shown: int = CONTRIBUTIONS_SHOWN) -> str:
+    """What drives the ensemble on one row, as rich text: the base value, the ``shown``
+    largest contributions (signed, each with the row's value) and the rest summed, to the
+    output explained; for a row where the surrogate disagrees, first in words what pushes
+    the ensemble towards its own class."""
+    cls = [str(c) for c in forest.classes_]
+    names = list(forest.feature_names)
+    e = int(ensemble_class)
+    col, sign = explained_output(rc, e)
+    v = rc.values[:, col]
+    name = rc.output_names[col]
+    prob = rc.output == OUTPUT_PROBABILITY
+    what = html.escape(f"P({name})" if prob else name)
+    out = []
+    if int(surrogate_class) != e:
+        def listed(js) -> str:
+            return ", ".join(f"<b>{html.escape(names[j])}</b> = "
+                             f"{html.escape(value_text(forest, j, float(x[j])))} ({v[j]:+.4f})"
+                             for j in js)
+        toward = [j for j in np.argsort(-sign * v, kind="stable") if sign * v[j] > 0][:3]
+        away = [j for j in np.argsort(sign * v, kind="stable") if sign * v[j] < 0][:3]
+        parts = [f"towards {html.escape(cls[e])}, {listed(toward)}" if toward else
+                 f"no feature pushes towards {html.escape(cls[e])}"]
+        if away:
+            parts.append(f"away from it, {listed(away)}")
+        out.append(f"<p><span style='color:{theme.BAD}'><b>The surrogate says "
+                   f"{html.escape(cls[int(surrogate_class)])}, the ensemble "
+                   f"{html.escape(cls[e])}.</b></span> What drives the ensemble here: "
+                   f"{'; '.join(parts)}. From the base value {rc.base[col]:.4f} they end at "
+                   f"{what} = {float(rc.explained[col]):.4f}.</p>")
+    if prob:
+        explains = (f"{what}, the ensemble's probability of its class {html.escape(cls[e])}, "
+                    "from the base value (its average over the trees' training data):")
+    else:
+        explains = (f"{what}, log-odds before the "
+                    f"{'logistic' if rc.values.shape[1] == 1 else 'softmax'} (the ensemble "
+                    f"says {html.escape(cls[e])} here: {'positive' if sign > 0 else 'negative'}"
+                    " contributions push towards it), from the base value (the starting score "
+                    "plus the trees' average margin over their training data):")
+    out.append(f"<p>{explains}</p>")
+    order = np.argsort(-np.abs(v), kind="stable")[:shown]
+    top = float(np.abs(v[order]).max()) if order.size else 0.0
+    out.append("<table cellspacing='0' cellpadding='2'>"
+               f"<tr style='color:{theme.MUTED}'><td>feature</td><td align='right'>value</td>"
+               "<td align='right'>contribution</td><td colspan='3'></td></tr>"
+               f"<tr><td colspan='2'>base value</td><td align='right'>{rc.base[col]:.4f}</td>"
+               "<td></td><td></td><td></td></tr>")
+    for j in order:
+        c = float(v[j])
+        width = int(round(BAR_CELLS * abs(c) / top)) if top > 0 else 0
+        width = max(width, 1) if c != 0 else 0
+        colour = theme.ACCENT if sign * c > 0 else theme.GREEDY
+        left, right = (_bar(width, colour), "") if c < 0 else ("", _bar(width, colour))
+        out.append(f"<tr><td nowrap>{html.escape(names[j])}</td>"
+                   f"<td nowrap align='right'>{html.escape(value_text(forest, j, float(x[j])))}"
+                   f"</td><td nowrap align='right'>{c:+.4f}</td>"
+                   f"<td nowrap align='right'>{left}</td><td bgcolor='{theme.RULE}'></td>"
+                   f"<td nowrap>{right}</td></tr>")
+    rest = np.setdiff1d(np.arange(v.size), order)
+    if rest.size:
+        out.append(f"<tr style='color:{theme.MUTED}'><td colspan='2'>{rest.size} other "
+                   f"feature{'s' if rest.size > 1 else ''}</td><td align='right'>"
+                   f"{float(v[rest].sum()):+.4f}</td><td></td><td></td><td></td></tr>")
+    out.append(f"<tr><td colspan='2'><b>= {what}</b> for this row</td><td align='right'><b>"
+               f"{float(rc.explained[col]):.4f}</b></td><td></td><td></td><td></td></tr>"
+               "</table>")
+    return "".join(out)
 
 
 class CasesModel(QAbstractTableModel):
@@ -437,13 +555,29 @@ class CasesPage(Page):
         detail_scroll.setWidgetResizable(True)
         detail_scroll.setFrameShape(QFrame.Shape.NoFrame)
         detail_scroll.setWidget(detail_card)
-        detail_scroll.setMinimumWidth(320)
+        detail_scroll.setMinimumWidth(300)
+        # a text browser, not a label: it lays its text out once per change (a label in a
+        # scroll area does so several times, a quarter of the time of choosing a row)
+        drive_card = Card("What drives the ensemble", note="Exact Shapley values (TreeSHAP) "
+                          "of the ensemble's own output. Teal: towards the ensemble's class; "
+                          "grey: away from it.")
+        self.drive = QTextBrowser()
+        self.drive.setFrameShape(QFrame.Shape.NoFrame)
+        self.drive.setOpenLinks(False)
+        self.drive.document().setDocumentMargin(0)
+        drive_card.body.addWidget(self.drive)
+        lay = drive_card.layout()  # the browser, not the card's closing stretch, takes the room
+        lay.setStretch(lay.count() - 2, 1)
+        lay.setStretch(lay.count() - 1, 0)
+        drive_card.setMinimumWidth(320)  # its table of numbers and bars fits
+        self.drive_html = ""  # what the browser shows, as set
         self.split = QSplitter(Qt.Orientation.Horizontal)
         self.split.addWidget(self.table)
         self.split.addWidget(detail_scroll)
-        self.split.setStretchFactor(0, 3)
-        self.split.setStretchFactor(1, 2)
-        self.split.setSizes([760, 440])
+        self.split.addWidget(drive_card)
+        for i, stretch in enumerate((3, 2, 2)):
+            self.split.setStretchFactor(i, stretch)
+        self.split.setSizes([480, 330, 400])
         self.split.setMinimumHeight(480)
         self.body_layout.addWidget(self.split, 1)
         self.dis_card = Card("Disagreements", note="Rows where the surrogate's class differs "
@@ -455,6 +589,12 @@ class CasesPage(Page):
         self.body_layout.addWidget(self.dis_card)
         self._shown_for = None
         self.selected_row: int | None = None
+        # a row's contributions: worked out at once when that is quick (as last measured),
+        # otherwise in a worker; kept for the rows chosen last
+        self.explainer = LatestCall(self, exclusive=False)
+        self._explained: OrderedDict[int, RowContributions] = OrderedDict()
+        self._explain_inline = False
+        self.shown_contributions: tuple[int, RowContributions] | None = None
 
     # ------------------------------------------------------------------ filling
     def refresh(self) -> None:
@@ -466,6 +606,7 @@ class CasesPage(Page):
             self.message.setText("Open a model and its data first.")
             self.model.clear()
             self._shown_for = None
+            self._forget_contributions()
             return
         if c is None:
             self.message.setText("Cases need the surrogate: solve it on the Surrogate page, then "
@@ -473,10 +614,12 @@ class CasesPage(Page):
                                  "Cases have not run yet: press Run cases (Ctrl+R).")
             self.model.clear()
             self._shown_for = None
+            self._forget_contributions()
             return
         if self._shown_for is c:
             return
         self._shown_for = c
+        self._forget_contributions(getattr(c, "effects", None))
         self.message.setText(f"{c.ensemble.size:,} rows; the surrogate agrees with the ensemble "
                              f"on {c.agreement:.1%} of them ({c.disagreements.size:,} "
                              "disagreements).")
@@ -585,6 +728,65 @@ class CasesPage(Page):
         row = self.proxy.mapToSource(current).row()
         self.selected_row = row
         self.detail.setText(self.describe(row))
+        self._show_contributions(row)
+
+    # ------------------------------------------------------------------ contributions
+    def _forget_contributions(self, effects=None) -> None:
+        """New cases (or none): drop the rows explained so far; keep those the cases step
+        explained already (its disagreement rows)."""
+        self.explainer.drop()
+        self._explained.clear()
+        self._explain_inline = False
+        self.shown_contributions = None
+        self._set_drive("")
+        if effects is not None:
+            for k, row in enumerate(np.asarray(effects.case_rows).tolist()):
+                self._explained[int(row)] = RowContributions(
+                    np.asarray(effects.case_values[k]), np.asarray(effects.case_base),
+                    effects.output, list(effects.output_names))
+
+    def _show_contributions(self, row: int) -> None:
+        rc = self._explained.get(row)
+        if rc is not None:
+            self._explained.move_to_end(row)
+        elif self._explain_inline:
+            rc = self._keep(row, explain_row(self.review.forest, self.model.X[row]))
+        if rc is not None:
+            self.explainer.drop()  # a row asked for earlier must not replace this one
+            self._render_contributions(row, rc)
+            return
+        self._set_drive(f"<p style='color:{theme.MUTED}'>Working out the contributions of "
+                        f"row {row + 1}…</p>")
+        self.explainer.request(explain_row, self.review.forest, self.model.X[row].copy(),
+                               done=lambda rc_, r=row: self._explained_row(r, rc_),
+                               failed=self._not_explained)
+
+    def _keep(self, row: int, rc: RowContributions) -> RowContributions:
+        if rc.seconds is not None:  # the next row is worked out at once if this one was quick
+            self._explain_inline = rc.seconds < INLINE_LIMIT_S
+        self._explained[row] = rc
+        while len(self._explained) > CONTRIBUTIONS_KEPT:
+            self._explained.popitem(last=False)
+        return rc
+
+    def _explained_row(self, row: int, rc: RowContributions) -> None:
+        self._keep(row, rc)
+        if row == self.selected_row:
+            self._render_contributions(row, rc)
+
+    def _not_explained(self, exc) -> None:
+        self._set_drive("The contributions of this row could not be worked out.")
+        self.window_.show_problem(exc, "working out the row's contributions")
+
+    def _render_contributions(self, row: int, rc: RowContributions) -> None:
+        c = self.review.cases
+        self._set_drive(contributions_html(self.review.forest, self.model.X[row], rc,
+                                           int(c.ensemble[row]), int(c.surrogate[row])))
+        self.shown_contributions = (row, rc)
+
+    def _set_drive(self, text: str) -> None:
+        self.drive_html = text
+        self.drive.setHtml(text)
 
     def describe(self, row: int) -> str:
         """The chosen row as rich text: probabilities, the path and its terms, the leaf."""

@@ -1,11 +1,12 @@
 """Surrogate: settings, the solve with its live incumbent and bound, the tree and its rules,
-fidelity beside the greedy tree, the certificate, and exports."""
+fidelity beside the greedy tree, the certificate, exports, and (once the cases step has run)
+the feature pairs the ensemble combines most beside those the surrogate puts in one split."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from PySide6.QtCore import QTimer
+from PySide6.QtCore import Qt, QTimer
 from PySide6.QtWidgets import (QDoubleSpinBox, QFileDialog, QFormLayout, QGridLayout,
                                QHBoxLayout, QHeaderView, QPlainTextEdit, QPushButton, QSpinBox,
                                QTableWidget, QTableWidgetItem, QVBoxLayout, QAbstractItemView)
@@ -158,6 +159,25 @@ class SurrogatePage(Page):
         self.rules.setMinimumHeight(200)
         self.rules_card.body.addWidget(self.rules)
         self.body_layout.addWidget(self.rules_card)
+        self.pairs_card = Card("Feature pairs: the ensemble's and the surrogate's",
+                               note="How much the ensemble's output for one feature depends "
+                               "on the other's value: the mean |Shapley interaction| "
+                               "(Lundberg et al. 2020) over sampled rows. A surrogate split "
+                               "that uses both features states their combination directly.")
+        self.pair_statement = wrapped("")
+        self.pairs = QTableWidget(0, 4)
+        self.pairs.setHorizontalHeaderLabels(["rank", "pair", "mean |interaction|",
+                                              "in one surrogate split"])
+        self.pairs.verticalHeader().setVisible(False)
+        self.pairs.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
+        header = self.pairs.horizontalHeader()
+        header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+        header.setSectionResizeMode(1, QHeaderView.ResizeMode.Stretch)
+        self.pairs.setMaximumWidth(760)  # a wider table only spreads its four columns apart
+        self.pairs_note = wrapped("", muted=True)
+        for w in (self.pair_statement, self.pairs, self.pairs_note):
+            self.pairs_card.body.addWidget(w)
+        self.body_layout.addWidget(self.pairs_card)
         self.stages = KeyValues()
         stages_card = Card("How it was found (each candidate, scored on every training row)")
         stages_card.body.addWidget(self.stages)
@@ -314,7 +334,7 @@ class SurrogatePage(Page):
             else "No feature is forbidden (flag them on the Anatomy page).")
         res = r.surrogate if r is not None else None
         for w in (self.result_card, self.weak_card, self.tree_card, self.greedy_card,
-                  self.rules_card, self.stages_card):
+                  self.rules_card, self.stages_card, self.pairs_card):
             w.setVisible(res is not None)
         if r is None:
             self.live_text.setText("Open a model and its data first.")
@@ -325,6 +345,7 @@ class SurrogatePage(Page):
                                        "(Ctrl+Return).")
             return
         self._show_weak_spots()
+        self._show_pairs()
         if self._drawn_for is res:
             return
         self._drawn_for = res
@@ -342,6 +363,43 @@ class SurrogatePage(Page):
         self.weak_text.setText("\n\n".join(s.text for s in spots) if spots else
                                "None found with the review's settings." if r.cases is not None
                                else "Shown once the cases step has run.")
+
+    def _show_pairs(self) -> None:
+        """The ensemble's strongest pairs (from the cases step's effects) beside the
+        surrogate's, and the sentence that compares them."""
+        r = self.review
+        eff = getattr(r.cases, "effects", None) if r.cases is not None else None
+        self.pairs.setVisible(eff is not None)
+        if eff is None:
+            self.pair_statement.setText("Shown once the cases step has run.")
+            self.pairs_note.setText("")
+            return
+        self.pair_statement.setText(eff.pair_statement)
+        theirs = {frozenset(p) for p in eff.surrogate_pairs}
+        rows = [(f"#{i}", f"{p.first} & {p.second}", f"{p.mean_abs:.4g}",
+                 "yes" if frozenset((p.first, p.second)) in theirs else "")
+                for i, p in enumerate(eff.pairs, 1)]
+        ranked = {frozenset((p.first, p.second)) for p in eff.pairs}
+        rows += [("—", f"{a} & {b}", f"not among the {len(eff.pairs)} strongest", "yes")
+                 for a, b in eff.surrogate_pairs if frozenset((a, b)) not in ranked]
+        self.pairs.setRowCount(len(rows))
+        for i, cells in enumerate(rows):
+            for c, text in enumerate(cells):
+                item = QTableWidgetItem(text)
+                if c in (0, 2):
+                    item.setTextAlignment(Qt.AlignmentFlag.AlignRight
+                                          | Qt.AlignmentFlag.AlignVCenter)
+                elif c == 3:
+                    item.setTextAlignment(Qt.AlignmentFlag.AlignCenter)
+                self.pairs.setItem(i, c, item)
+        self.pairs.setFixedHeight(self.pairs.horizontalHeader().height()
+                                  + 2 * self.pairs.frameWidth() + 2
+                                  + sum(self.pairs.rowHeight(i) for i in range(len(rows))))
+        self.pairs_note.setText(
+            f"On the first {eff.interaction_rows:,} rows of "
+            f"{eff.sample.get('description', 'the sample')}, in "
+            f"{'probability' if eff.output == 'probability' else 'margin (log-odds)'} units, "
+            "summed over the outputs.")
 
     def _replay(self, res) -> None:
         """A reopened review: draw the chart from the candidates it recorded."""
