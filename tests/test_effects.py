@@ -163,3 +163,32 @@ def test_accumulated_local_effects_follow_correlated_data_where_partial_dependen
     assert ale_ratio > 2.0  # the model's truth along the data: 0.28 / 0.12 = 2.3
     assert pd_ratio < 1.6  # mean(x1) over both halves: about 1
     assert ale_ratio > 1.5 * pd_ratio
+
+
+def test_a_large_forest_gets_a_smaller_sample_set_by_its_size(monkeypatch):
+    """The effects' rows follow a work budget fixed by the forest alone: a smaller budget
+    gives fewer rows, the same on a re-run; the interactions keep the pairs among the top
+    features and equal the full computation there."""
+    from grovewise import effects_summary as es
+
+    X, y = load_breast_cancer(return_X_y=True)
+    forest = gw.from_estimator(RandomForestClassifier(20, random_state=0).fit(X, y))
+    pred = forest.predict_index(X)
+    work = es._work_per_row(forest)
+    monkeypatch.setattr(es, "CONTRIBUTION_WORK", 150 * work)
+    monkeypatch.setattr(es, "INTERACTION_WORK", 1.0)
+    first, _ = es.ensemble_effects(forest, X, pred, None, rows=400, interaction_rows=100,
+                                   seed=3)
+    again, _ = es.ensemble_effects(forest, X, pred, None, rows=400, interaction_rows=100,
+                                   seed=3)
+    assert first.sample["size"] == 150 and again.sample == first.sample
+    assert first.interaction_rows == es.MIN_INTERACTION_ROWS
+    top = sorted(first.importance, key=lambda f: -first.importance[f])[:es.INTERACTION_FEATURES]
+    assert all(p.first in top and p.second in top for p in first.pairs)
+    # reference: the full interactions on the same rows, ranked among the same features
+    from grovewise.sampling import stratified_rows
+
+    rows = stratified_rows(pred, X.shape[0], 150, 3).rows[:es.MIN_INTERACTION_ROWS]
+    full = gw.interaction_ranking(gw.interactions(forest, X[rows]), forest.feature_names)
+    expected = [(p.first, p.second) for p in full if p.first in top and p.second in top]
+    assert [(p.first, p.second) for p in first.pairs] == expected[:len(first.pairs)]

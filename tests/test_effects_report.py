@@ -82,7 +82,8 @@ def _pdf_text(path, page=None) -> str:
 
 def _sentences(fx):
     sample = (f"Computed on a sample of {ROWS} of 3,000 rows (seed {SEED}, stratified by the "
-              f"predicted class); the interactions on the first {PAIR_ROWS} of them.")
+              f"predicted class); the interactions on the first {PAIR_ROWS} of them, among the "
+              "8 features of largest mean |contribution|.")
     cut = next(c.statement for curve in fx.curves for c in curve.cuts)
     return sample, cut, fx.pair_statement
 

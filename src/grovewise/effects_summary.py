@@ -2,7 +2,11 @@
 
 Computed in the cases step, on a seeded sample of the review rows stratified by the model's
 class (``ReviewSettings.effects_rows``; the interactions on the first
-``ReviewSettings.interaction_rows`` of it), so the figures do not grow with the data:
+``ReviewSettings.interaction_rows`` of it, among the ``INTERACTION_FEATURES`` features of
+largest mean |contribution|), so the figures do not grow with the data. For a large forest the
+rows shrink further to a work budget fixed by the forest's size (``CONTRIBUTION_WORK``,
+``INTERACTION_WORK``), so the effects take seconds on any model and a re-run draws the same
+sample:
 
 - global importance as the mean absolute contribution (exact Shapley values, TreeSHAP) per
   feature, summed over the outputs;
@@ -34,6 +38,14 @@ from .analysis.effects import (AccumulatedEffects, PartialDependence, accumulate
 from .sampling import RowSample, stratified_rows
 
 EFFECT_FEATURES = 6  # curves for the features the ensemble relies on most
+INTERACTION_FEATURES = 8  # the interactions rank the pairs among this many top features
+# Work budgets (node visits x depth, per row: see ``_rows_within``): the sample shrinks for a
+# large forest so that each part takes seconds (about 6 s on 2 cores), whatever the data.
+# The row counts follow from the forest alone, so a review re-run gives the same sample.
+CONTRIBUTION_WORK = 2.5e9
+INTERACTION_WORK = 2.5e9
+MIN_ROWS = 100
+MIN_INTERACTION_ROWS = 20
 DISAGREEMENT_ROWS = 12  # disagreement rows explained (the most confident first)
 TOP_PAIRS = 10  # interaction pairs kept
 STEEP_SHARE = 0.5  # an interval whose change is at least this share of the largest is steep
@@ -220,6 +232,25 @@ def _medians(Xs: np.ndarray) -> np.ndarray:
                          for j in range(Xs.shape[1])])
 
 
+def _work_per_row(forest, features=None) -> float:
+    """The walk's work for one row: every tree's nodes times its depth, and for the
+    interactions that again per conditioned feature (twice: known and unknown)."""
+    work = 0.0
+    for t in forest.trees:
+        base = t.n_nodes * max(t.max_depth, 1)
+        if features is None:
+            work += base
+        else:
+            used = np.intersect1d(t.feature[t.feature >= 0], features).size
+            work += base * (1 + 2 * used)
+    return work
+
+
+def _rows_within(work_per_row: float, budget: float, cap: int, floor: int) -> int:
+    """The rows a budget allows (at least ``floor``, at most ``cap``)."""
+    return int(min(cap, max(floor, budget // max(work_per_row, 1.0))))
+
+
 def ensemble_effects(forest, X: np.ndarray, predicted: np.ndarray, thresholds, *, rows: int,
                      interaction_rows: int, seed: int, features=None, progress=None,
                      cancel=None, jobs=None) -> tuple[EffectsResult, EffectsDetail]:
@@ -233,23 +264,30 @@ def ensemble_effects(forest, X: np.ndarray, predicted: np.ndarray, thresholds, *
     ``progress(fraction, message)`` hears of each part.
     """
     say = progress or (lambda *_: None)
+    rows = _rows_within(_work_per_row(forest), CONTRIBUTION_WORK, rows, MIN_ROWS)
     sample = stratified_rows(predicted, X.shape[0], rows, seed)
     Xs = X[sample.rows]
     names = list(forest.feature_names)
     what = f"contributions (TreeSHAP) on {sample.describe()}"
     say(0.05, what)
-    c = contributions(forest, Xs, jobs=jobs, cancel=cancel,
+    c = contributions(forest, Xs, jobs=jobs, cancel=cancel, chunk_rows=64,
                       progress=lambda done, total: say(0.05 + 0.3 * done / max(total, 1),
                                                        f"{what}: {done:,}/{total:,} rows"))
     mean_abs = np.abs(c.values).mean(axis=0).sum(axis=1)
     importance = {n: float(v) for n, v in zip(names, mean_abs)}
-    n_int = min(interaction_rows, Xs.shape[0])
-    what = f"interactions on {n_int:,} of the sampled rows"
+    top = [int(j) for j in np.argsort(-mean_abs, kind="stable")[:INTERACTION_FEATURES]]
+    n_int = min(Xs.shape[0], _rows_within(_work_per_row(forest, top), INTERACTION_WORK,
+                                          interaction_rows, MIN_INTERACTION_ROWS))
+    what = (f"interactions among the {len(top)} features of largest mean |contribution|, on "
+            f"{n_int:,} of the sampled rows")
     say(0.35, what)
-    inter = interactions(forest, Xs[:n_int], jobs=jobs, cancel=cancel,
+    inter = interactions(forest, Xs[:n_int], jobs=jobs, cancel=cancel, chunk_rows=4,
+                         features=top,
                          progress=lambda done, total: say(0.35 + 0.25 * done / max(total, 1),
                                                           f"{what}: {done:,}/{total:,} rows"))
-    all_pairs = interaction_ranking(inter, names)
+    among = set(top)
+    all_pairs = [pr for pr in interaction_ranking(inter, names)
+                 if names.index(pr.first) in among and names.index(pr.second) in among]
     pairs = all_pairs[:TOP_PAIRS]
     medians = _medians(Xs)
     if features is None:

@@ -777,21 +777,33 @@ def contributions(forest: Forest, X, *, jobs: int | None = None,
 def interactions(forest: Forest, X, *, jobs: int | None = None,
                  progress: Callable[[int, int], None] | None = None,
                  cancel: threading.Event | None = None,
-                 chunk_rows: int = 256, algorithm: str = "linear") -> np.ndarray:
+                 chunk_rows: int = 256, algorithm: str = "linear",
+                 features: Sequence[int] | None = None) -> np.ndarray:
     """Shapley interaction values (Lundberg et al. 2020), shape (n, p, p, n_outputs).
 
     ``[r, i, j, c]`` for ``i != j`` is half of the interaction of features i and j in case r
     (the matrix is symmetric, the two halves add up to the whole); the diagonal is the main
     effect, so ``values.sum(axis=2)`` equals :func:`contributions`' values. Outputs as in
     :func:`contributions`. The cost is about ``2 x (features per tree)`` times that of the
-    contributions. Parameters as for :func:`contributions`.
+    contributions. Parameters as for :func:`contributions`, and ``features``: compute only
+    the pairs among these feature indices (the cost then grows with their number, not with
+    every feature a tree uses); the other entries are 0 and the diagonal is then not the
+    main effect.
     """
     p, n_out = forest.n_features, forest.n_outputs
     kernel = (_linear_interaction_rows if algorithm == "linear"
               else _path_interaction_rows)
+
+    def pairs_of(prep):
+        if features is None:
+            return prep.tf_ptr, prep.tf_idx
+        keep = np.isin(prep.tf_idx, np.asarray(list(features), dtype=np.int64))
+        kept = np.concatenate([[0], np.cumsum(keep)]).astype(np.int64)
+        return kept[prep.tf_ptr], prep.tf_idx[keep]
+
     values, _ = _run_chunks(forest, X, kernel, (p, p, n_out), algorithm=algorithm,
                             jobs=jobs, progress=progress, cancel=cancel, chunk_rows=chunk_rows,
-                            extra=lambda prep: (prep.tf_ptr, prep.tf_idx))
+                            extra=pairs_of)
     return values
 
 

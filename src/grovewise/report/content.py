@@ -438,8 +438,12 @@ def _effects_sample_sentence(fx) -> str:
     """Which rows the effects were computed on, in one sentence."""
     n, size = int(fx.interaction_rows), int(fx.sample.get("size", 0))
     pairs = "on all of them" if n >= size else f"on the first {n:,} of them"
+    from ..effects_summary import INTERACTION_FEATURES
+
     return (f"Computed on {fx.sample.get('description', f'{size:,} rows')}; the interactions "
-            f"{pairs}.")
+            f"{pairs}, among the {INTERACTION_FEATURES} features of largest mean "
+            "|contribution|. A large forest gets fewer rows, by a work budget set by its size "
+            "alone, so the effects take seconds and a re-run draws the same sample.")
 
 
 def _output_text(fx) -> str:
