@@ -189,7 +189,7 @@ def _numeric_panel(ax, effect, k: int, others: list[int], with_surrogate: bool,
     if with_surrogate and not effect.cuts:
         notes = ["not tested by the surrogate"]
     if notes:
-        ax.set_xlabel(_wrap("; ".join(notes), panel_w), fontsize=SMALL, color=SURROGATE_CUT,
+        ax.set_xlabel(_wrap("; ".join(notes), 0.8 * panel_w), fontsize=SMALL, color=SURROGATE_CUT,
                       loc="left")
     _style_panel(ax)
 
@@ -278,7 +278,7 @@ def _category_panel(ax, effect, k: int, others: list[int], with_surrogate: bool,
     if shown.size < len(names):
         notes.append(f"{shown.size} of {len(names)} categories (those furthest from the mean)")
     if notes:
-        ax.set_xlabel(_wrap("; ".join(notes), panel_w), fontsize=SMALL, color=SURROGATE_CUT,
+        ax.set_xlabel(_wrap("; ".join(notes), 0.8 * panel_w), fontsize=SMALL, color=SURROGATE_CUT,
                       loc="left")
     _style_panel(ax)
 
