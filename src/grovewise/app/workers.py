@@ -275,8 +275,15 @@ class TaskRunner(QObject):
             self.cancel_event.set()
 
     def wait(self, timeout_ms: int = 30000) -> bool:
-        """Block until the current job's thread ends (for closing the window)."""
-        return self._thread.wait(timeout_ms) if self._thread is not None else True
+        """Block until the current job's thread ends (for closing the window).
+
+        The thread's loop is told to quit here: the quit queued by the job's end waits for
+        the GUI thread, which is blocked in this very call, so waiting on it alone would
+        take the whole timeout (and leave the thread running when the window goes)."""
+        if self._thread is None:
+            return True
+        self._thread.quit()  # takes effect once the job under way returns
+        return self._thread.wait(timeout_ms)
 
     def _start(self, worker: QObject, kind: str, connect: Callable | None = None) -> None:
         if self.busy:
