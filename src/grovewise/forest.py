@@ -29,15 +29,10 @@ LINK_LOGISTIC = "logistic"  # one output: p(classes_[1]) = expit(base + sum of l
 LINK_SOFTMAX = "softmax"  # one output per class: softmax(base + sum of leaf values)
 LINKS = (LINK_MEAN, LINK_LOGISTIC, LINK_SOFTMAX)
 
-# Where a numeric split sends a missing value (``Tree.missing_rule``, one per node).
-MISSING_NAN = 0  # NaN goes the node's missing side; every number is compared
-MISSING_ZERO = 1  # NaN and zero (|x| <= 1e-35, LightGBM's zero_as_missing) go the missing side
-MISSING_NONE = 2  # no missing side: NaN is compared as 0.0 (LightGBM's missing_type None)
-ZERO_AS_MISSING = float(np.float32(1e-35))  # LightGBM's kZeroThreshold (a float32)
-
-# The rule codes of the flat layout: the three above, and two kinds of categorical split.
-RULE_CATEGORY = 3  # a negative value is no category
-RULE_CATEGORY_TRUNCATED = 4  # the value is truncated to a whole number first (LightGBM)
+# Where a numeric split sends a missing value, and the categorical rule codes: defined once,
+# beside the compiled rule that reads them.
+from .traversal import (MISSING_NAN, MISSING_NONE, MISSING_ZERO,  # noqa: E402,F401
+                        RULE_CATEGORY, RULE_CATEGORY_TRUNCATED, ZERO_AS_MISSING)
 
 
 @dataclass(frozen=True, eq=False)

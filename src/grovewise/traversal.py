@@ -12,11 +12,15 @@ import numba
 import numpy as np
 
 
-RULE_MISSING_ZERO = 1  # forest.MISSING_ZERO
-RULE_MISSING_NONE = 2  # forest.MISSING_NONE
-RULE_CATEGORY = 3  # forest.RULE_CATEGORY
-RULE_CATEGORY_TRUNCATED = 4  # forest.RULE_CATEGORY_TRUNCATED
-ZERO_AS_MISSING = 1.0000000180025095e-35  # forest.ZERO_AS_MISSING (LightGBM's float32 1e-35)
+# The rule code of a node (``Tree.missing_rule`` for a numeric split; ``forest.py`` re-exports
+# these). Where a numeric split sends a missing value:
+MISSING_NAN = 0  # NaN goes the node's missing side; every number is compared
+MISSING_ZERO = 1  # NaN and zero (|x| <= 1e-35, LightGBM's zero_as_missing) go the missing side
+MISSING_NONE = 2  # no missing side: NaN is compared as 0.0 (LightGBM's missing_type None)
+ZERO_AS_MISSING = float(np.float32(1e-35))  # LightGBM's kZeroThreshold (a float32)
+# and the two kinds of categorical split:
+RULE_CATEGORY = 3  # a negative value is no category
+RULE_CATEGORY_TRUNCATED = 4  # the value is truncated to a whole number first (LightGBM)
 
 
 @numba.njit(cache=True, nogil=True, inline="always")
@@ -46,10 +50,10 @@ def goes_left(x, k, dec, strict):  # pragma: no cover - compiled
             return False
         return other_left[k]
     if np.isnan(x):
-        if r != RULE_MISSING_NONE:
+        if r != MISSING_NONE:
             return missing_left[k]
         x = 0.0
-    elif r == RULE_MISSING_ZERO and -ZERO_AS_MISSING <= x <= ZERO_AS_MISSING:
+    elif r == MISSING_ZERO and -ZERO_AS_MISSING <= x <= ZERO_AS_MISSING:
         return missing_left[k]
     if strict:
         return x < threshold[k]
