@@ -216,9 +216,13 @@ def test_surrogate_page_shows_the_tree_fidelity_and_cautions(win):
     est = res.surrogate
     assert page.result_card.isVisible() and page.caution.isVisible()
     assert "not a diagnosis" in page.caution.text()
-    for row, name in enumerate(("surrogate", "greedy")):
+    for row, name in enumerate(("surrogate", "greedy", "optimal_axis")):
         for col, part in enumerate(("train", "holdout", "full"), start=1):
-            assert page.fidelity.item(row, col).text() == f"{100 * res.fidelity[name][part]:.1f}%"
+            text = page.fidelity.item(row, col).text()
+            assert text.split("\n")[0] == f"{100 * res.fidelity[name][part]:.1f}%"
+            if part != "full":  # with its 95% Wilson interval
+                low, high = res.fidelity[name][f"{part}_ci"]
+                assert text.split("\n")[1] == f"({100 * low:.1f}% to {100 * high:.1f}%)"
     assert page.rules.toPlainText().strip() == est.export_text().strip()
     drawn = " ".join(t.get_text().replace("\n", " ") for t in page.tree_view.figure.axes[0].texts)
     for rule in est.rules_list_:

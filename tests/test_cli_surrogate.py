@@ -12,11 +12,13 @@ def test_surrogate_command_exports_rules_json_tree_and_program(tmp_path, capfd):
     paths = sample_paths()
     out = tmp_path / "s"
     code = main(["surrogate", str(paths["xgboost"]), str(paths["data"]), "--target",
-                 "complication", "--out", str(out), "--depth", "2", "--time-limit", "4"])
+                 "complication", "--out", str(out), "--depth", "2", "--time-limit", "6"])
     assert code == 0
     printed = capfd.readouterr().out
     assert "Running HiGHS" not in printed  # the solver's banner stays out of our output
-    assert "fidelity (unweighted): surrogate" in printed and "certificate:" in printed
+    assert "surrogate (winning stage" in printed and "certificate: No tree of depth 2" in printed
+    assert "exact axis-aligned tree: fidelity (unweighted)" in printed
+    assert "(95% interval" in printed
     for name in ("rules.txt", "surrogate.json", "tree.png", "tree.svg", "program.mps"):
         assert (out / name).stat().st_size > 0, name
     doc = json.loads((out / "surrogate.json").read_text())

@@ -59,7 +59,7 @@ def test_mimic_reports_stages_certificate_and_leaves(cancer_forest):
     forest, X = cancer_forest
     res = mimic(forest, X, depth=2, holdout=0.3, random_state=0, time_limit=4.0)
     names = [s["name"] for s in res.stages]
-    assert names[:3] == ["greedy", "trivial", "local_search"]
+    assert names[:4] == ["greedy", "trivial", "optimal_axis", "local_search"]
     assert res.certificate["solver"] == "HiGHS" and "highs" in res.certificate["versions"]
     assert res.certificate["first_candidate_time"] < 1.0
     assert sum(l["train_rows"] for l in res.leaves) == res.train_rows.size
@@ -70,6 +70,26 @@ def test_mimic_reports_stages_certificate_and_leaves(cancer_forest):
     # the rules are in the model's feature names, and what predicts is what is read
     assert any(name in res.surrogate.rules_ for name in forest.feature_names)
     assert res.surrogate.fidelity_ == pytest.approx(res.weighted_fidelity["surrogate"]["train"])
+    # the bound holds on every training row, in the objective's units, with its gap
+    est = res.surrogate
+    assert 0 <= est.bound_ <= est.objective_
+    assert est.mip_gap_ == pytest.approx((est.objective_ - est.bound_) / est.objective_)
+    assert est.bound_method_ in ("classes", "parts", "axis")
+    assert est.certificate_ == res.certificate["statement"]
+    assert f"of the {res.train_rows.size:,} training rows" in est.certificate_
+    # the exact axis-aligned baseline: never better than the answer on the training objective
+    axis = next(s for s in res.stages if s["name"] == "optimal_axis")
+    assert res.surrogate.result_.objective <= axis["objective"] + 1e-12
+    yhat = forest.classes_[np.argmax(forest.predict_proba(X), axis=1)]
+    axis_agree = res.greedy_optimal.predict(X[res.holdout_rows]) == yhat[res.holdout_rows]
+    assert res.fidelity["optimal_axis"]["holdout"] == pytest.approx(axis_agree.mean())
+    # every fidelity shown carries its 95% Wilson interval (reference: scipy's binomtest)
+    from scipy.stats import binomtest
+    for model in ("surrogate", "greedy", "optimal_axis"):
+        for part, rows in (("train", res.train_rows), ("holdout", res.holdout_rows)):
+            k = int(round(res.fidelity[model][part] * rows.size))
+            ci = binomtest(k, rows.size).proportion_ci(method="wilson")
+            assert res.fidelity[model][f"{part}_ci"] == pytest.approx((ci.low, ci.high))
 
 
 def test_iris_depth_one_surrogate_isolates_setosa():

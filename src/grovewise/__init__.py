@@ -15,6 +15,7 @@ from .errors import (CancelledError, DataError, GrovewiseError, ModelFileError, 
 from .forest import Forest, Tree
 from .loaders import Dataset, from_estimator, load_data, load_model
 from .surrogate import ObliqueSurrogate, mimic
+from .surrogate.optimal_axis import fit_axis_tree as optimal_axis_tree
 
 __version__ = "0.1.0"
 
@@ -24,6 +25,6 @@ __all__ = [
     "interaction_ranking", "interactions", "partial_dependence", "accumulated_local_effects",
     "PartialDependence", "AccumulatedEffects",
     "UnsafeModelError", "UnsupportedModelError", "depth_usage", "from_estimator",
-    "impurity_importance", "load_data", "load_model", "mimic", "position_usage", "proximity",
+    "impurity_importance", "load_data", "load_model", "mimic", "optimal_axis_tree", "position_usage", "proximity",
     "proximity_pairs", "__version__",
 ]

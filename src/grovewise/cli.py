@@ -316,14 +316,9 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
         review, files = write_review_folder(inputs, settings, folder, reviewer,
                                             progress=progress, jobs=jobs)
     sur = review.surrogate
-    fid = sur.fidelity
     print(f"review of {inputs.model} on {inputs.data}: done in {time.perf_counter() - start:.1f} s")
     print(f"  exactness     {review.intake.exactness.text()}")
-    print(f"  surrogate     fidelity {_pct(fid['surrogate']['train'])} train, "
-          f"{_pct(fid['surrogate']['holdout'])} holdout (unweighted; winning "
-          f"stage {sur.winner})")
-    print(f"  greedy tree   fidelity {_pct(fid['greedy']['train'])} train, "
-          f"{_pct(fid['greedy']['holdout'])} holdout (unweighted)")
+    _print_fidelities(sur, "  ")
     print(f"  certificate   {certificate_line(review)}")
     print(f"  relies on     {reliance_text(review_reliance(review))}")
     for spot in weak_spots(review):
@@ -473,20 +468,31 @@ def cmd_surrogate(args) -> int:
     write_atomic(out / "surrogate.json", json.dumps(result.to_dict(), indent=1))
     save_figure(surrogate_tree_figure(est, title=f"Surrogate of {Path(args.model).name}"),
                 out / "tree", formats=("png", "svg"), dpi=args.dpi)
-    fid = result.fidelity
     print(est.rules_)
-    print(f"fidelity (unweighted): surrogate {_pct(fid['surrogate']['train'])} train, "
-          f"{_pct(fid['surrogate']['holdout'])} holdout; greedy "
-          f"{_pct(fid['greedy']['train'])} train, {_pct(fid['greedy']['holdout'])} holdout")
+    _print_fidelities(result, "")
     cert = result.certificate
-    print(f"certificate: {cert['status']}, objective {cert['objective']:.5f}, bound "
-          f"{_fmt_optional(cert['bound'])}, gap {_fmt_optional(cert['gap'])}; winning stage "
-          f"{result.winner}")
+    print(f"certificate: {cert.get('statement') or ''} Status {cert['status']}, objective "
+          f"{cert['objective']:.5f}, bound {_fmt_optional(cert['bound'])}, gap "
+          f"{_fmt_optional(cert['gap'])}; winning stage {result.winner}")
+    if est.proof_ is not None and est.proof_.parts:
+        est.proof_.write_mps(out / "proof")
     if result.note:
         print(result.note)
     written = sorted(p.name for p in out.iterdir() if not p.name.startswith("."))
     print(f"wrote {', '.join(written)} to {out}")
     return 0
+
+
+def _print_fidelities(result, indent: str) -> None:
+    """Each tree's unweighted fidelity with its 95% Wilson interval, train and holdout."""
+    from .report.content import fidelity_text
+
+    names = {"surrogate": f"surrogate (winning stage {result.winner})",
+             "greedy": "greedy tree (CART)", "optimal_axis": "exact axis-aligned tree"}
+    for model, name in names.items():
+        if model in result.fidelity:
+            print(f"{indent}{name}: fidelity (unweighted) {fidelity_text(result, 'train', model)}"
+                  f" train, {fidelity_text(result, 'holdout', model)} holdout")
 
 
 def cmd_reproduce(args) -> int:

@@ -240,6 +240,13 @@ def proba_in_blocks(forest: Forest, X: np.ndarray, meter: StepMeter | None = Non
     return out
 
 
+def _warm_up_surrogate() -> None:
+    from .surrogate import optimal_axis, pair_split, sweep_kernel
+
+    for module in (sweep_kernel, pair_split, optimal_axis):
+        module.warm_up()
+
+
 class Review:
     """One review: inputs, settings, results of every step, and the reviewer's sign-off."""
 
@@ -288,10 +295,9 @@ class Review:
             cancel: threading.Event | None = None) -> "Review":
         """Run ``steps`` in order. A failing or cancelled step leaves earlier results intact."""
         if "surrogate" in steps and not self.done("surrogate"):
-            # compile the surrogate's sweep while the first steps run, not on its clock
-            from .surrogate.sweep_kernel import warm_up
-
-            threading.Thread(target=warm_up, name="compile-sweep", daemon=True).start()
+            # compile the surrogate's kernels while the first steps run, not on its clock
+            threading.Thread(target=_warm_up_surrogate, name="compile-sweep",
+                             daemon=True).start()
         for step in steps:
             if step not in STEPS:
                 raise SettingError(f"step {step!r} is not known; steps: {', '.join(STEPS)}")

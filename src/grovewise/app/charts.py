@@ -12,7 +12,8 @@ from . import theme
 # The report's progress figure draws the incumbent and bound in these colours too.
 INCUMBENT, BOUND = "#2f6f8f", "#b0653a"
 STAGE_WORDS = {"greedy": "greedy tree", "trivial": "one-leaf tree", "local_search": "node search",
-               "program": "MILP", "polish": "polish"}
+               "program": "MILP", "polish": "polish",
+               "optimal_axis": "exact axis-aligned tree", "proof": "proof"}
 
 
 def _figure(width: float, height: float) -> Figure:

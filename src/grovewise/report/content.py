@@ -83,16 +83,48 @@ ROW_NUMBERING = ("Rows are numbered from 1 in the order of the data file (the he
                  "file follow the review data's.")
 
 
-def _fidelity_text(fid: dict, part: str, review, model: str = "surrogate") -> str:
-    """``"93.4% (95% interval 91.2% to 95.1%)"`` for an unweighted fidelity."""
+def fidelity_text(result, part: str, model: str = "surrogate") -> str:
+    """``"93.4% (95% interval 91.2% to 95.1%)"``: an unweighted fidelity of a surrogate
+    result (``mimic``'s) on its training or holdout rows, with its Wilson interval."""
     from ..analysis.intervals import wilson_interval
 
-    v = fid[model][part]
+    v = result.fidelity[model][part]
     if v is None:
         return "n/a"
-    rows = review.surrogate.train_rows if part == "train" else review.surrogate.holdout_rows
-    ci = wilson_interval(int(round(v * rows.size)), int(rows.size))
+    ci = result.fidelity[model].get(f"{part}_ci")
+    if ci is None:  # a result saved before the intervals were stored with it
+        rows = result.train_rows if part == "train" else result.holdout_rows
+        ci = wilson_interval(int(round(v * rows.size)), int(rows.size))
     return f"{pct(v)} (95% interval {pct(ci[0])} to {pct(ci[1])})" if ci else pct(v)
+
+
+def _fidelity_text(fid: dict, part: str, review, model: str = "surrogate") -> str:
+    return fidelity_text(review.surrogate, part, model)
+
+
+def _axis_rows(review) -> list[tuple[str, str]]:
+    """The exact axis-aligned tree's summary row (none for a review saved before it, or at
+    depth 3 and more, where it is not computed)."""
+    sur = review.surrogate
+    fid = sur.fidelity
+    if "optimal_axis" not in fid:
+        return []
+    ax = (sur.certificate.get("optimal_axis") or {})
+    proven = "proven optimal" if ax.get("optimal") else "best found, not proven"
+    return [("Exact axis-aligned tree", f"same depth, {proven}; fidelity (unweighted) "
+             f"{_fidelity_text(fid, 'train', review, 'optimal_axis')} train / "
+             f"{_fidelity_text(fid, 'holdout', review, 'optimal_axis')} holdout")]
+
+
+def _proof_text(proof) -> str:
+    if not proof:
+        return "not run"
+    routes = ", ".join(f"{k} {v:.5f}" for k, v in proof.get("routes", {}).items())
+    parts = proof.get("parts") or []
+    solved = sum(p.get("status") == "optimal" for p in parts)
+    return (f"bound on the weighted disagreement {proof['disagreement_bound']:.5f} "
+            f"({proof['method']}); every route: {routes}; {len(parts)} part(s) solved, "
+            f"{solved} to optimality")
 
 
 def _depth_text(review) -> str:
@@ -104,10 +136,14 @@ def _depth_text(review) -> str:
 
 
 def certificate_line(review) -> str:
-    """The certificate in one sentence: status, objective, bound, gap and what the bound
-    covers."""
+    """The certificate in words: the fidelity no tree of the class can beat on the training
+    rows, this tree's, the gap and the bound's method; then the status word."""
     sur = review.surrogate
     cert = sur.certificate
+    statement = cert.get("statement")
+    if statement:
+        return f"{statement} Status: {cert.get('status')}."
+    # a review saved before the proof existed: its bound covered the program's sample
     points = (cert.get("sample") or {}).get("points")
     n_train = int(sur.train_rows.size)
     if cert.get("bound") is None:
@@ -176,8 +212,10 @@ def _summary(doc: Document, review) -> None:
         ("Surrogate", f"{_depth_text(review)}, fidelity (unweighted) "
                       f"{_fidelity_text(fid, 'train', review)} train / "
                       f"{_fidelity_text(fid, 'holdout', review)} holdout"),
-        ("Greedy tree", f"same depth, fidelity (unweighted) {pct(fid['greedy']['train'])} "
-                        f"train / {pct(fid['greedy']['holdout'])} holdout"),
+        ("Greedy tree", f"same depth, fidelity (unweighted) "
+                        f"{_fidelity_text(fid, 'train', review, 'greedy')} train / "
+                        f"{_fidelity_text(fid, 'holdout', review, 'greedy')} holdout"),
+        *_axis_rows(review),
         ("Certificate", certificate_line(review)),
         ("Solver", f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),
         ("Decision", DECISION_TEXT.get(review.reviewer.decision, review.reviewer.decision)),
@@ -404,10 +442,14 @@ def _surrogate(doc: Document, review) -> None:
     cert = sur.certificate
     doc.add(Heading("Solver certificate", 2))
     doc.add(KeyValues([
+        ("In words", certificate_line(review)),
         ("Status", str(cert.get("status"))),
         ("Objective", _num(cert.get("objective"), 6)),
-        ("Best bound", _num(cert.get("bound"), 6)),
-        ("MIP gap", _num(cert.get("gap"), 4)),
+        ("Proven bound", f"{_num(cert.get('bound'), 6)} (every training row; "
+                         f"method: {cert.get('bound_method') or 'the program, on its sample'})"),
+        ("Gap", _num(cert.get("gap"), 4)),
+        ("Proof", _proof_text(cert.get("proof"))),
+        ("Program's own bound", f"{_num(cert.get('program_bound'), 6)} (on its sample only)"),
         ("Time", f"{_num(cert.get('time'), 4)} s (build {_num(cert.get('build_time'), 3)} s, "
                  f"solve {_num(cert.get('solve_time'), 3)} s)"),
         ("Limits", f"time {st.time_limit:g} s, nodes {st.node_limit or 'none'}"),
@@ -420,9 +462,11 @@ def _surrogate(doc: Document, review) -> None:
                     s.get("note") or ""] for s in sur.stages],
                   caption="Candidates by stage, each scored on every training row (the best "
                           "one is kept)", formats=[None, ".5f", ".4f", ".2f", None]))
-    doc.add(Paragraph("The MIP gap of such programs usually stays large within the time limit "
-                      "(the big-M relaxation is weak), so the guarantee that matters is the "
-                      "fidelity measured above, on training and holdout rows.", "note"))
+    doc.add(Paragraph("The proven bound holds for every tree of this depth and features per "
+                      "split on every training row; the program's own bound covers only the "
+                      "points it saw, and its big-M relaxation is weak, so it seldom leaves 0. "
+                      "Each proven part's program can be written as MPS and solved again "
+                      "(grovewise surrogate ... --out DIR writes them to DIR/proof).", "note"))
 
 
 IMPORTANCE_ROWS = 20  # features in the Effects section's importance table at most

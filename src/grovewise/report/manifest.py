@@ -29,8 +29,10 @@ UNDIGESTED_KEYS = frozenset({"time", "seconds", "elapsed", "wall_time", "build_t
                              "solve_time", "time_to_first", "timings", "started_at",
                              "finished_at", "trace", "duration", "first_candidate_time",
                              "compile_time", "total_time", "source", "file", "path",
-                             "history", "threads"})
-# history: the progress reports, as many as the clock allowed; threads: the cores a solve used
+                             "history", "threads", "counters"})
+# history: the progress reports, as many as the clock allowed; threads: the cores a solve used;
+# counters: how much work the exact axis-aligned search did, which depends on which of its
+# threads found a better tree first (its answer does not)
 
 
 def library_versions() -> dict[str, str]:

@@ -14,6 +14,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from ..errors import SettingError
 from ..plain import to_plain
 from .categories import CategoryOrder, EncodedTree, solo_mask
+from .optimal_axis import AxisTree
 from .pipeline import PipelineSettings, run_pipeline
 from .program import ROUTINGS
 from .rules import round_tree, tree_text
@@ -88,22 +89,35 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         and predicts one class for every row). No split of ``tree_`` has sides that predict
         the same class: such a split is removed in every stage, predictions unchanged.
     status_ : str
-        ``optimal`` (proved on every training row), ``optimal_on_sample`` (proved for the
-        program's sample), ``time_limit``, ``node_limit``, ``cancelled``, ``greedy_fallback``
+        ``optimal`` (proved best on every training row by ``proof_``), ``optimal_on_sample``
+        (proved for the program's sample only), ``time_limit``, ``node_limit``, ``cancelled``, ``greedy_fallback``
         (the greedy tree is the answer), ``no_incumbent`` (the program found nothing; the
         answer is the best other candidate), ``skipped`` (no program was run).
     objective_ : float
         The program's objective for the returned (rounded) tree on the training rows.
     bound_ : float or None
-        HiGHS's best proven lower bound of the program (on its sample; see
-        ``result_.sample['covers_all_rows']``).
+        A proven lower bound on the least objective any tree of the fitted class (depth,
+        features per split, admissible features, minimum leaf size) reaches on every row
+        given to ``fit`` (:mod:`grovewise.surrogate.proof`), in the units of ``objective_``.
+        (The program's own bound, on its sample only, is in ``result_.certificate``.)
     mip_gap_ : float or None
-        Relative gap between the returned tree's objective in the program and ``bound_``.
+        ``(objective_ - bound_) / objective_``; 0 when the tree is proven best.
+    bound_method_ : str or None
+        The route whose bound won: ``classes``, ``parts`` or ``axis``.
+    proof_ : Proof or None
+        The bound on the weighted disagreement, every route's bound, and each proven part
+        (``proof_.write_mps(folder)`` writes their programs).
+    certificate_ : str or None
+        The certificate in one sentence: the fidelity no tree of the class can beat, this
+        tree's, and the gap.
     fidelity_ : float
         Weighted training fidelity of the rounded tree (``exact_fidelity_`` before rounding).
     result_ : PipelineResult
         Stages (each with its tree and ``depth_used``), certificate, sample size, read-back
         check.
+    optimal_axis_ : AxisTree or None
+        The exact optimal axis-aligned tree of the same depth (depth 1 and 2), the second
+        baseline; ``objective_`` is its weighted disagreement on every training row.
     greedy_ : DecisionTreeClassifier or EncodedTree
         The greedy baseline (CART); with categorical features it was fit on ranks, and is
         wrapped so that it too is given codes.
@@ -327,11 +341,26 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         if order is not None:  # fit on ranks: it is given codes, like the surrogate
             res.greedy = EncodedTree(res.greedy, order)
         self.greedy_ = res.greedy
+        self.optimal_axis_ = None
+        if res.axis is not None:
+            axis = AxisTree(res.axis, self.classes_, order)
+            # scored on every training row (the search may have run on a sample of them)
+            axis.objective_ = float(weighted_disagreement(res.axis_tree, Xs, yk, wn))
+            self.optimal_axis_ = axis
         self.exact_fidelity_ = 1.0 - weighted_disagreement(exact, Xs, yk, wn)
         self.fidelity_ = 1.0 - weighted_disagreement(rounded, Xs, yk, wn)
         self.objective_ = objective(rounded, Xs, yk, wn, self.alpha, penalty)
+        self.proof_ = res.proof
         self.bound_ = res.bound
-        self.mip_gap_ = res.gap
+        if res.proof is not None:  # the proof holds on every row: gap of the tree returned
+            self.bound_ = min(res.bound, self.objective_)
+            self.mip_gap_ = (0.0 if self.objective_ - self.bound_ <= 1e-9 else
+                             float((self.objective_ - self.bound_) / self.objective_))
+        else:
+            self.mip_gap_ = res.gap
+        self.bound_method_ = None if res.proof is None else res.proof.method
+        self.certificate_ = (None if res.proof is None else
+                             res.proof.sentence(1.0 - self.fidelity_))
         self.status_ = res.status
         self.winner_ = res.winner
         self.stages_ = res.stages

@@ -26,6 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .program import MIN_MARGIN
+from .pair_split import best_pair_line
 from .sweep_kernel import best_cuts
 from .tree import (ObliqueTree, n_branch_nodes, node_depth, objective, subtree_branch_nodes,
                    with_majority_classes)
@@ -45,6 +46,12 @@ class SearchSettings:
     min_leaf_size: int = 1
     pair_features: int = 10
     angles: int = 16
+    # The exact two-feature line (``pair_split``) is searched on the pairs of this many of
+    # the best single features, on at most ``exact_pair_rows`` of the node's points (a
+    # seeded sample beyond); the line found is then scored on every point of the node.
+    exact_pair_features: int = 8
+    exact_pair_rows: int = 300
+    seed: int = 0
     max_passes: int = 6
     min_gap: float = 2 * MIN_MARGIN
     # Features that may only split alone (bool per feature, None: none): a categorical
@@ -195,7 +202,10 @@ def _improve_node(tree: ObliqueTree, t: int, Xs: np.ndarray, y: np.ndarray, w: n
         axis_cost = cost[-feats.size:]
         mixable = ~st.is_solo(feats)  # a solo feature never joins a pair
         top = feats[mixable][np.argsort(axis_cost[mixable], kind="stable")[: st.pair_features]]
-        P = _unit(_pairs(top, Xs.shape[1], st.angles))
+        P = _pairs(top, Xs.shape[1], st.angles)
+        exact = _exact_pair_lines(tree, t, Xt, yt, wt, left_leaf, right_leaf, n_sub, K,
+                                  top[: st.exact_pair_features], st)
+        P = _unit(np.vstack([P, exact]))
         if P.size:
             pc, po = sweep.run(P)
             A, cost = np.vstack([A, P]), np.concatenate([cost, pc + (P != 0) @ pen_row])
@@ -255,6 +265,51 @@ def _pairs(feats: np.ndarray, p: int, angles: int) -> np.ndarray:
             blk[:, feats[b]] = np.sin(th)
             rows.append(blk)
     return np.vstack(rows) if rows else np.zeros((0, p))
+
+
+def _exact_pair_lines(tree: ObliqueTree, t: int, Xt, yt, wt, left_leaf, right_leaf, n_sub: int,
+                      K: int, feats: np.ndarray, st: SearchSettings) -> np.ndarray:
+    """For every pair of ``feats``, the best line on that pair for the points at node t.
+
+    A point's cost on each side is fixed first: at a node above leaves, by each ordered pair
+    of the (up to three) heaviest classes there as the two leaves' classes; higher up, by the
+    classes the leaves it would reach now predict. The line is then exact for those costs
+    (:func:`~grovewise.surrogate.pair_split.best_pair_line`)."""
+    p = Xt.shape[1]
+    if feats.size < 2 or Xt.shape[0] < 2:
+        return np.zeros((0, p))
+    if Xt.shape[0] > st.exact_pair_rows:
+        rng = np.random.default_rng([st.seed, t])
+        rows = np.sort(rng.choice(Xt.shape[0], st.exact_pair_rows, replace=False))
+        Xt, yt, wt = Xt[rows], yt[rows], wt[rows]
+        left_leaf, right_leaf = left_leaf[rows], right_leaf[rows]
+    deltas = []
+    if n_sub == 1:
+        heavy = np.argsort(-np.bincount(yt, weights=wt, minlength=K), kind="stable")[:3]
+        for a in heavy:
+            for b in heavy:
+                if a != b:
+                    deltas.append(wt * ((yt != a).astype(float) - (yt != b)))
+    else:
+        first = t
+        for _ in range(tree.depth - node_depth(t) - 1):
+            first = 2 * first + 1
+        left_first = 2 * first + 1 - n_branch_nodes(tree.depth)
+        right_first = left_first + n_sub
+        miss_left = yt != tree.leaf_class[left_first + left_leaf]
+        miss_right = yt != tree.leaf_class[right_first + right_leaf]
+        deltas.append(wt * (miss_left.astype(float) - miss_right))
+    out = []
+    for a in range(feats.size):
+        for b in range(a + 1, feats.size):
+            pts = Xt[:, [feats[a], feats[b]]]
+            for delta in deltas:
+                line = best_pair_line(pts, delta)
+                if line is not None:
+                    row = np.zeros(p)
+                    row[[feats[a], feats[b]]] = line[1]
+                    out.append(row)
+    return np.array(out) if out else np.zeros((0, p))
 
 
 def _coordinate_moves(A, cost, offs, feats, sweep, pen_row, st: SearchSettings, rounds: int = 3):

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import sklearn
 
+from ..analysis.intervals import wilson_interval
 from ..analysis.proximity import proximity_pairs
 from ..analysis.usage import depth_usage
 from ..errors import DataError, SettingError
@@ -60,9 +61,14 @@ class MimicResult:
     greedy : DecisionTreeClassifier or EncodedTree
         CART of the same depth on the same targets and weights (the baseline); with
         categorical features, wrapped so that it is given category codes like the surrogate.
+    greedy_optimal : AxisTree or None
+        The proven-optimal axis-aligned tree of the same depth (depth 1 and 2) on the same
+        targets and weights, the second baseline.
     fidelity : dict
-        ``{"surrogate": {"train", "holdout", "full"}, "greedy": {...}}``: share of rows where
-        the tree predicts the forest's class (``holdout`` None without a holdout).
+        ``{"surrogate": {"train", "holdout", "full", "train_ci", "holdout_ci"}, "greedy":
+        {...}, "optimal_axis": {...}}``: share of rows where the tree predicts the forest's
+        class (``holdout`` None without a holdout), ``*_ci`` its 95% Wilson interval
+        (:func:`~grovewise.analysis.intervals.wilson_interval`).
     weighted_fidelity : dict
         The same, each row weighted by the forest's probability of its class.
     certificate : dict
@@ -83,6 +89,7 @@ class MimicResult:
 
     surrogate: ObliqueSurrogate
     greedy: object
+    greedy_optimal: object
     fidelity: dict
     weighted_fidelity: dict
     certificate: dict
@@ -173,14 +180,21 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
     prox["separated_pairs"] = _separated(est, X[train], pairs)
     greedy = est.greedy_
     res = est.result_
-    fid, wfid = _fidelity(est, greedy, X, labels, w, train, hold)
+    fid, wfid = _fidelity(est, greedy, est.optimal_axis_, X, labels, w, train, hold)
     note = ""
     if res.winner == "greedy":
         note = ("The greedy tree (CART) is the answer: no other candidate beat it on "
                 "full-training weighted fidelity.")
     cert = {
         "status": est.status_, "objective": est.objective_, "bound": est.bound_,
-        "gap": est.mip_gap_, "time": res.total_time, "solve_time": res.solve_time,
+        "gap": est.mip_gap_, "bound_method": est.bound_method_,
+        "statement": est.certificate_,
+        "proof": None if est.proof_ is None else est.proof_.to_dict(),
+        "program_bound": None if res.certificate is None else res.certificate.get("bound"),
+        "optimal_axis": None if est.optimal_axis_ is None else {
+            "objective": est.optimal_axis_.objective_, "optimal": est.optimal_axis_.optimal_,
+            "note": res.axis_note},
+        "time": res.total_time, "solve_time": res.solve_time,
         "build_time": res.build_time, "first_candidate_time": res.first_candidate_time,
         "nodes": None if res.certificate is None else res.certificate.get("nodes"),
         "program_status": None if res.certificate is None else res.certificate.get("status"),
@@ -189,7 +203,7 @@ def mimic(forest: Forest, X, depth: int = 2, proximity_threshold: float | None =
                                         "numpy": np.__version__},
     }
     return MimicResult(
-        surrogate=est, greedy=greedy, fidelity=fid, weighted_fidelity=wfid, certificate=cert,
+        surrogate=est, greedy=greedy, greedy_optimal=est.optimal_axis_, fidelity=fid, weighted_fidelity=wfid, certificate=cert,
         leaves=_leaves(est, X, labels, train, hold), sample_size=None if res.sample is None
         else res.sample["points"], stages=[s.to_dict() for s in res.stages], winner=res.winner,
         note=note, proximity=prox,
@@ -295,20 +309,26 @@ def _separated(est: ObliqueSurrogate, Xtr: np.ndarray, pairs) -> int:
     return int(np.count_nonzero(leaf[pairs[:, 0]] != leaf[pairs[:, 1]]))
 
 
-def _fidelity(est, greedy, X, yhat, w, train, hold):
-    """Agreement with the forest's class (``yhat``: labels) per tree and part of the data."""
-    ps = est.predict(X)
-    pg = greedy.predict(X)
+def _fidelity(est, greedy, axis, X, yhat, w, train, hold):
+    """Agreement with the forest's class (``yhat``: labels) per tree and part of the data,
+    with the 95% Wilson interval of the unweighted share on the training and holdout rows."""
+    trees = [("surrogate", est.predict(X)), ("greedy", greedy.predict(X))]
+    if axis is not None:
+        trees.append(("optimal_axis", axis.predict(X)))
     fid, wfid = {}, {}
-    for name, pred in (("surrogate", ps), ("greedy", pg)):
+    for name, pred in trees:
         agree = pred == yhat
         fid[name], wfid[name] = {}, {}
         for part, rows in (("train", train), ("holdout", hold), ("full", np.arange(X.shape[0]))):
             if rows.size == 0:
                 fid[name][part] = wfid[name][part] = None
+                if part != "full":
+                    fid[name][f"{part}_ci"] = None
                 continue
             fid[name][part] = float(agree[rows].mean())
             wfid[name][part] = float((w[rows] * agree[rows]).sum() / w[rows].sum())
+            if part != "full":
+                fid[name][f"{part}_ci"] = wilson_interval(int(agree[rows].sum()), int(rows.size))
     return fid, wfid
 
 

@@ -1199,3 +1199,42 @@ def optimal_axis_tree(X, y, sample_weight=None, depth: int = 2, n_classes: int |
     result.lower_bound = min(err, float(unsettled)) / total if not optimal else err / total
     result.seconds = time.perf_counter() - t0
     return result
+
+
+class AxisTree:
+    """The proven-optimal axis-aligned tree, with the labels it was fit on.
+
+    ``predict(X)`` gives labels; ``objective_`` is the weighted misclassification share
+    (weights normalised to sum 1); ``optimal_`` says the search settled every root cut,
+    ``lower_bound_`` holds for every tree of the depth in any case; ``result_`` is the
+    search's :class:`AxisTreeResult`. With a ``category_order`` (a surrogate's categorical
+    features), ``X`` holds category codes, encoded before routing like the surrogate's."""
+
+    def __init__(self, result: AxisTreeResult, classes: np.ndarray, category_order=None):
+        self.result_ = result
+        self.classes_ = np.asarray(classes)
+        self.category_order = category_order
+        self.objective_ = float(result.objective)
+        self.optimal_ = bool(result.optimal)
+        self.lower_bound_ = float(result.lower_bound)
+        self.depth = int(result.depth)
+
+    def _encoded(self, X) -> np.ndarray:
+        X = np.asarray(X, dtype=np.float64)
+        return X if self.category_order is None else self.category_order.encode(X)
+
+    def apply(self, X) -> np.ndarray:
+        return self.result_.route(self._encoded(X))
+
+    def predict(self, X) -> np.ndarray:
+        return self.classes_[self.result_.predict(self._encoded(X))]
+
+
+def fit_axis_tree(X, y, depth: int = 2, sample_weight=None, *, admissible=None,
+                  min_leaf: int = 1, deadline: float | None = None) -> AxisTree:
+    """:func:`optimal_axis_tree` on any labels (``gw.optimal_axis_tree``)."""
+    classes, idx = np.unique(np.asarray(y), return_inverse=True)
+    res = optimal_axis_tree(np.asarray(X, dtype=np.float64), idx.reshape(-1), sample_weight,
+                            depth=depth, n_classes=max(len(classes), 2), admissible=admissible,
+                            min_leaf=min_leaf, deadline=deadline)
+    return AxisTree(res, classes)

@@ -5,7 +5,12 @@ the best of several candidates, every one scored the same way, on the full train
 (weighted disagreement + alpha * sparsity penalty, weights summing to 1):
 
 1. ``greedy``: CART of the same depth on every row (the baseline, always reported).
-2. ``local_search``: node-by-node re-optimisation of the hyperplanes from the greedy tree.
+   ``optimal_axis``: the exact optimal axis-aligned tree of the same depth (depth 1 and 2;
+   :mod:`.optimal_axis`), the second baseline.
+2. ``local_search``: node-by-node re-optimisation of the hyperplanes from the better of
+   the two baselines (exact two-feature lines among the moves, :mod:`.pair_split`).
+   Then the proof (:mod:`.proof`): a bound on the least disagreement any tree of the class
+   reaches on every training row, within ``proof_share`` of the time.
 3. ``program``: the MILP of SURROGATE_MILP.md on a representative weighted sample,
    warm-started (z included) from the best candidate so far.
 4. ``polish``: the program's tree with offsets re-fit, then node-by-node search, on all rows.
@@ -24,6 +29,8 @@ import numpy as np
 
 from ..errors import SettingError
 from .greedy import fit_greedy, oblique_from_greedy
+from .optimal_axis import AxisTreeResult, optimal_axis_tree
+from .proof import Proof, prove
 from .local_search import SearchSettings, improve, refit_offsets, separated_groups
 from .program import ProgramData, build_program, choose_margin
 from ..sampling import stratified_rows
@@ -64,6 +71,10 @@ class PipelineSettings:
     # features: every stage keeps them out of splits that use another feature (the greedy
     # tree is axis-aligned anyway).
     solo: np.ndarray | None = None
+    proof_share: float = 0.2
+    axis_share: float = 0.15
+    # above this many rows, the exact axis-aligned tree is searched on the search rows
+    axis_rows: int = 50_000
 
     @property
     def exact(self) -> bool:
@@ -116,6 +127,11 @@ class PipelineResult:
     solve_time: float
     total_time: float
     history: list[Progress] = field(default_factory=list)
+    proof: Proof | None = None
+    axis: AxisTreeResult | None = None  # the exact axis-aligned search (depth 1 and 2)
+    axis_tree: ObliqueTree | None = None
+    axis_note: str = ""
+    disagreement: float = 0.0  # weighted disagreement of ``tree`` on every training row
 
     def to_dict(self) -> dict:
         return {
@@ -125,14 +141,25 @@ class PipelineResult:
             "sample": self.sample, "program_size": self.program_size, "readback": self.readback,
             "first_candidate_time": self.first_candidate_time, "build_time": self.build_time,
             "solve_time": self.solve_time, "total_time": self.total_time,
+            "proof": None if self.proof is None else self.proof.to_dict(),
+            "optimal_axis": None if self.axis is None else {
+                "objective": self.axis.objective, "optimal": self.axis.optimal,
+                "lower_bound": self.axis.lower_bound, "seconds": self.axis.seconds,
+                "note": self.axis_note},
         }
+
+
+BASELINES = ("greedy", "optimal_axis")
+# the status word when a baseline is the answer
+_FALLBACK = {"greedy": "greedy_fallback", "optimal_axis": "axis_fallback"}
 
 
 class _Board:
     """The candidates so far, and the best of them.
 
-    Order: not below the greedy tree's weighted fidelity (the answer never loses to the
-    baseline, whatever alpha or proximity asks); then fewer separated must-link groups; then
+    Order: not below the better baseline's weighted fidelity (the greedy tree's, the exact
+    axis-aligned tree's: the answer never loses to a baseline, whatever alpha or proximity
+    asks); then fewer separated must-link groups; then
     the lower objective. A must-link group is kept whenever a candidate that keeps it is at
     least as faithful as the greedy tree; the groups the answer separates are counted in its
     stage record (``separated_groups``), never dropped silently.
@@ -142,7 +169,7 @@ class _Board:
         self.Xs, self.y, self.wn, self.K, self.st, self.group, self.t0 = Xs, y, wn, K, st, group, t0
         self.stages: list[StageRecord] = []
         self.best: tuple | None = None  # (key, name, tree)
-        self.greedy_fidelity: float | None = None
+        self.floor: float | None = None  # the best baseline's weighted fidelity
 
     def add(self, name: str, tree: ObliqueTree, started: float, note: str = "") -> ObliqueTree:
         tree = with_majority_classes(tree, self.Xs, self.y, self.wn, self.K)
@@ -154,13 +181,21 @@ class _Board:
                                        elapsed=now - self.t0, duration=now - started,
                                        separated_groups=sep, note=note,
                                        depth_used=depth_used(tree), tree=tree))
-        if self.greedy_fidelity is None:
-            self.greedy_fidelity = fid
-        below = fid < self.greedy_fidelity - 1e-12
-        key = (below, sep, obj)
+        if name in BASELINES:
+            self.floor = fid if self.floor is None else max(self.floor, fid)
+            self._rank()
+        key = (fid < self.floor - 1e-12, sep, obj)
         if self.best is None or key < self.best[0]:
             self.best = (key, name, tree)
         return tree
+
+    def _rank(self) -> None:
+        """Rank every candidate again (a new baseline can raise the floor)."""
+        self.best = None
+        for s in self.stages[:-1]:
+            key = (s.fidelity < self.floor - 1e-12, s.separated_groups, s.objective)
+            if self.best is None or key < self.best[0]:
+                self.best = (key, s.name, s.tree)
 
     @property
     def objective(self) -> float:
@@ -236,25 +271,62 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         # the one-leaf tree is a candidate too: always feasible, whatever the groups
         board.add("trivial", trivial_tree(Xs.shape[1], st.depth, scaling), time.perf_counter())
 
+    # 1b. the exact optimal axis-aligned tree (the second baseline)
+    axis = axis_tree = None
+    axis_note = ""
+    start_tree = gtree
+    if st.depth > 2:
+        axis_note = "not computed: the exact axis-aligned search covers depths 1 and 2"
+    elif n_classes > 1 and not _stop(cancel):
+        s0 = time.perf_counter()
+        emit("optimal_axis", f"the exact optimal axis-aligned tree on {n:,} rows")
+        on_all = n <= st.axis_rows
+        ax_X = X if on_all else X[work.rows]
+        axis = optimal_axis_tree(ax_X, y if on_all else work.y, wn if on_all else work.w,
+                                 depth=st.depth, n_classes=n_classes, admissible=st.admissible,
+                                 min_leaf=st.min_leaf_size,
+                                 deadline=until(s0 + st.axis_share * st.time_limit))
+        axis_note = ("" if on_all else f"searched on {work.note or 'the search rows'}") + (
+            "" if axis.optimal else "; stopped at its time share: best found, not proven")
+        axis_note = axis_note.strip("; ")
+        axis_tree = board.add("optimal_axis", axis.to_oblique(scaling), s0, note=axis_note)
+        if board.name == "optimal_axis":
+            start_tree = axis_tree
+        emit("optimal_axis")
+
     # 2. node-by-node search from the greedy tree
     search = SearchSettings(admissible=st.admissible, penalty=st.penalty, alpha=st.alpha,
                             max_features=st.max_features, min_leaf_size=st.min_leaf_size,
-                            solo=st.solo)
+                            solo=st.solo, seed=st.seed)
     if n_classes > 1 and not _stop(cancel):
         s0 = time.perf_counter()
         ls_deadline = until(s0 + st.local_search_share * st.time_limit)
-        t_ls, _ = improve(gtree, work.Xs, work.y, work.w, n_classes, search, group=work.group,
+        t_ls, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
+                          group=work.group,
                           deadline=ls_deadline, should_stop=alive("local_search"))
         board.add("local_search", t_ls, s0, note=work.note)
         emit("local_search")
         if group is not None and board.name != "local_search" and not _stop(cancel):
             # keeping every group costs too much fidelity: search without them as well
             s0 = time.perf_counter()
-            t_free, _ = improve(gtree, work.Xs, work.y, work.w, n_classes, search,
+            t_free, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
                                 deadline=until(s0 + st.local_search_share * st.time_limit),
                                 should_stop=alive("local_search_free"))
             board.add("local_search_free", t_free, s0, note="must-link groups not enforced")
             emit("local_search_free")
+
+    # the proof: a bound for every tree of the class, on every training row
+    proof = None
+    if n_classes > 1 and not _stop(cancel):
+        s0 = time.perf_counter()
+        emit("proof", "proving a bound for every tree of this class on every training row")
+        proof = prove(Xs, y, wn, n_classes, st.depth, st.admissible, st.max_features, st.solo,
+                      deadline=until(s0 + st.proof_share * st.time_limit),
+                      node_limit=st.node_limit, axis=axis if axis is not None and n <= st.axis_rows
+                      else None, seed=st.seed,
+                      should_stop=alive("proof", "proving a bound for every tree of this class"))
+        emit("proof", f"bound on the disagreement {proof.disagreement_bound:.5f} "
+                      f"({proof.method})")
 
     # 3. the program on a representative sample
     cert: SolveResult | None = None
@@ -330,7 +402,15 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
     tree = board.tree
     status, bound, gap = _status(board, cert, prog, sample, cancel, note)
     obj = board.objective
-    fid = 1.0 - weighted_disagreement(tree, Xs, y, wn)
+    dis = weighted_disagreement(tree, Xs, y, wn)
+    fid = 1.0 - dis
+    if proof is not None:
+        bound = objective_bound(proof, board, st)
+        gap = 0.0 if obj - bound <= 1e-9 else float((obj - bound) / max(obj, 1e-12))
+        if gap == 0.0 and status not in ("cancelled",):
+            status = "optimal"
+        elif status in ("optimal", "optimal_on_sample"):
+            status = "optimal_on_sample" if sample is not None else status
     return PipelineResult(
         tree=tree, greedy_tree=gtree, greedy=greedy, winner=board.name, status=status,
         objective=obj, fidelity=fid, bound=bound, gap=gap, stages=board.stages,
@@ -338,7 +418,18 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         sample=None if sample is None else sample.to_dict(),
         program_size=None if prog is None else prog.size(), readback=readback,
         first_candidate_time=first_time, build_time=build_time, solve_time=solve_time,
-        total_time=time.perf_counter() - t0, history=[] if cert is None else cert.history)
+        total_time=time.perf_counter() - t0, history=[] if cert is None else cert.history,
+        proof=proof, axis=axis, axis_tree=axis_tree, axis_note=axis_note, disagreement=dis)
+
+
+def objective_bound(proof: Proof, board: "_Board", st: PipelineSettings) -> float:
+    """The proof in the objective's units: a tree that does not split scores the one-leaf
+    tree's objective; one that splits pays at least the cheapest admissible feature's price
+    on top of the least disagreement."""
+    trivial = next((s.objective for s in board.stages if s.name == "trivial"), np.inf)
+    pen = st.penalty[st.admissible] if st.admissible.any() else np.zeros(1)
+    with_split = proof.disagreement_bound + st.alpha * float(pen.min())
+    return float(max(proof.disagreement_bound, min(trivial, with_split)))
 
 
 class _SearchRows:
@@ -349,6 +440,7 @@ class _SearchRows:
         n = Xs.shape[0]
         sample = stratified_rows(y, n, st.search_rows, st.seed, "class")
         rows = sample.rows
+        self.rows = rows
         self.Xs, self.y = Xs[rows], y[rows]
         self.w = wn[rows] / wn[rows].sum()
         self.group = None if group is None else group[rows]
@@ -418,7 +510,7 @@ def _status(board: _Board, cert, prog, sample, cancel, note):
             return "optimal", 0.0, 0.0
         if _stop(cancel):
             return "cancelled", None, None
-        return ("greedy_fallback" if board.name == "greedy" else "skipped"), None, None
+        return _FALLBACK.get(board.name, "skipped"), None, None
     bound = cert.bound
     gap = None
     if bound is not None:
@@ -432,9 +524,9 @@ def _status(board: _Board, cert, prog, sample, cancel, note):
     if gap is not None and gap <= 1e-6 and sample is not None:
         return ("optimal" if sample.covers_all_rows else "optimal_on_sample"), bound, gap
     if cert.values is None:
-        return ("greedy_fallback" if board.name == "greedy" else "no_incumbent"), bound, gap
-    if board.name == "greedy":
-        return "greedy_fallback", bound, gap
+        return (_FALLBACK.get(board.name, "no_incumbent")), bound, gap
+    if board.name in _FALLBACK:
+        return _FALLBACK[board.name], bound, gap
     return cert.status, bound, gap
 
 

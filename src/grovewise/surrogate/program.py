@@ -25,7 +25,7 @@ Two routing forms are offered (``routing``):
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pyomo.environ as pyo
@@ -93,6 +93,10 @@ class ProgramData:
     mu: float = MIN_MARGIN
     routing: str = "node"
     solo: np.ndarray | None = None
+    # The relaxation that bounds every tree of the class (see ``build_program``): no margin,
+    # ``|a|_1 = 1`` at every node that has admissible features; ``mu``, ``alpha``, soft pairs
+    # and the minimum leaf size are then not used.
+    for_bound: bool = False
 
     @property
     def n_groups(self) -> int:
@@ -321,8 +325,27 @@ class Program:
 
 
 def build_program(data: ProgramData) -> Program:
-    """Build the Pyomo model of the surrogate program for ``data``."""
+    """Build the Pyomo model of the surrogate program for ``data``.
+
+    With ``data.for_bound`` the model is a relaxation of the tree class, so that its proven
+    optimum bounds the least disagreement of every tree of the class on the points: a point
+    on a hyperplane may go either way (``mu = 0``; with one feature per split, the data's
+    smallest gap, which every axis-aligned split keeps), and so that the zero hyperplane cannot
+    route points at will, every node with admissible features splits with ``|a|_1 = 1``
+    (one sign binary per coefficient makes ``aa = |a|``). A real split ``a . x < b``,
+    scaled to ``|a|_1 = 1``, satisfies these rows; a node that does not split is a split
+    that sends every point right (``b = -1``); a node with no admissible feature sends every
+    point right. The minimum leaf size is dropped, which only lowers the optimum.
+    """
     t0 = time.perf_counter()
+    if data.for_bound:
+        # one feature per split: every split can be placed half-way between two neighbouring
+        # values, so the data's smallest gap is a margin every tree keeps (rows tied on a
+        # feature then stay together); with more, a hyperplane can pass arbitrarily close
+        # to a point, and only a margin of 0 is safe
+        mu = data_margin(data.Xs, data.admissible) if data.max_features == 1 else 0.0
+        data = replace(data, mu=mu, alpha=0.0, beta=0.0, min_leaf_size=1,
+                       soft_pairs=np.zeros((0, 2), dtype=np.int64))
     D, K = data.depth, data.n_classes
     nb, nl = n_branch_nodes(D), n_leaves(D)
     n, p = data.Xs.shape
@@ -348,6 +371,8 @@ def build_program(data: ProgramData) -> Program:
     by_node: dict[int, list[int]] = {t: [] for t in range(nb)}
     for (t, j) in pairs:
         by_node[t].append(j)
+    if data.for_bound:
+        _relax_for_bound(m, data, pairs, by_node)
 
     # -- split budget and admissible features
     m.budget = pyo.Constraint(range(nb), rule=lambda m, t: (
@@ -359,7 +384,8 @@ def build_program(data: ProgramData) -> Program:
     m.s_on = pyo.Constraint(pairs, rule=lambda m, t, j: m.s[t, j] <= m.d[t])
     m.b_hi = pyo.Constraint(range(nb), rule=lambda m, t: m.b[t] <= m.d[t])
     m.b_lo = pyo.Constraint(range(nb), rule=lambda m, t: m.b[t] >= -m.d[t])
-    m.hier = pyo.Constraint(range(1, nb), rule=lambda m, t: m.d[t] <= m.d[(t - 1) // 2])
+    if not data.for_bound:
+        m.hier = pyo.Constraint(range(1, nb), rule=lambda m, t: m.d[t] <= m.d[(t - 1) // 2])
     if k_cap is not None:
         m.k_cap = pyo.Constraint(range(nb), rule=lambda m, t: (
             sum(m.s[t, j] for j in by_node[t]) <= k_cap)
@@ -409,6 +435,25 @@ def build_program(data: ProgramData) -> Program:
     m.obj = pyo.Objective(expr=obj, sense=pyo.minimize)
     return Program(data=data, model=m, pairs=pairs, error_index=error_index,
                    build_time=time.perf_counter() - t0)
+
+
+def _relax_for_bound(m: pyo.ConcreteModel, data: ProgramData, pairs, by_node) -> None:
+    """Every node with admissible features splits with ``|a|_1 = 1``; one without sends
+    every point right (see :func:`build_program`)."""
+    D = data.depth
+    m.sign = pyo.Var(pairs, domain=pyo.Binary)
+    m.abs_pos = pyo.Constraint(pairs, rule=lambda m, t, j: (
+        m.a[t, j] >= m.aa[t, j] - 2 * (1 - m.sign[t, j])))
+    m.abs_neg = pyo.Constraint(pairs, rule=lambda m, t, j: (
+        m.a[t, j] <= -m.aa[t, j] + 2 * m.sign[t, j]))
+    m.unit = pyo.Constraint([t for t in by_node if by_node[t]], rule=lambda m, t: (
+        sum(m.aa[t, j] for j in by_node[t]) == 1))
+    for t, feats in by_node.items():
+        m.d[t].fix(1 if feats else 0)
+        if not feats:
+            for g in range(data.n_groups):
+                for leaf in side_leaves(t, D)[0]:
+                    m.z[g, int(leaf)].fix(0)
 
 
 def _add_routing(m: pyo.ConcreteModel, data: ProgramData, by_node: dict[int, list[int]]) -> None:

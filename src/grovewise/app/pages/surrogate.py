@@ -13,7 +13,7 @@ from PySide6.QtWidgets import (QDoubleSpinBox, QFileDialog, QFormLayout, QGridLa
 
 from ..charts import SolveChart, stage_words
 from ..theme import mono_font
-from ...report.content import certificate_line
+from ...report.content import certificate_line, fidelity_text
 from ...report.figures_surrogate import surrogate_tree_figure
 from ...weak_spots import weak_spots
 from ..tree_figure import cart_tree_figure
@@ -28,6 +28,7 @@ STATUS_WORDS = {
     "gap_reached": "stopped at the gap target",
     "cancelled": "cancelled: the best tree found before the solve was stopped",
     "greedy_fallback": "the greedy tree (CART) is the answer: no other candidate beat it",
+    "axis_fallback": "the exact axis-aligned tree is the answer: no other candidate beat it",
     "no_incumbent": "the program found no tree in time; the answer is the best other candidate",
     "skipped": "the program did not run; the answer is the best of the fast candidates",
 }
@@ -101,7 +102,7 @@ class SurrogatePage(Page):
         self.body_layout.addWidget(self.caution)
         self.result_card = Card("Result")
         self.verdict = Verdict()
-        self.fidelity = QTableWidget(2, 4)
+        self.fidelity = QTableWidget(3, 4)
         self.fidelity.setHorizontalHeaderLabels(["tree", "train", "holdout", "all rows"])
         self.fidelity.verticalHeader().setVisible(False)
         self.fidelity.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
@@ -112,7 +113,8 @@ class SurrogatePage(Page):
         grid.addWidget(self.verdict, 0, 0, 1, 2)
         fid_box = QVBoxLayout()
         fid_box.addWidget(wrapped("Fidelity (unweighted): the share of rows where the tree "
-                                  "gives the ensemble's class."))
+                                  "gives the ensemble's class; below each, its 95% interval "
+                                  "(Wilson)."))
         fid_box.addWidget(self.fidelity)
         fid_box.addWidget(self.fidelity_note)
         grid.addLayout(fid_box, 1, 0)
@@ -427,14 +429,18 @@ class SurrogatePage(Page):
                 "greedy tree.")
         good = (f["surrogate"]["holdout"] or 0) >= (f["greedy"]["holdout"] or 0)
         self.verdict.set("good" if good else "neutral", head + (f"\n{res.note}" if res.note else ""))
-        for row, name in enumerate(("surrogate", "greedy")):
-            cells = [name if name == "greedy" else "surrogate (oblique)"] + \
-                [pct(f[name][part]) for part in ("train", "holdout", "full")]
+        trees = [(name, label) for name, label in (
+            ("surrogate", "surrogate (oblique)"), ("greedy", "greedy (CART)"),
+            ("optimal_axis", "exact axis-aligned")) if name in f]
+        self.fidelity.setRowCount(len(trees))
+        for row, (name, label) in enumerate(trees):
+            cells = [label] + [fidelity_text(res, part, name).replace(" (95% interval ", "\n(")
+                               for part in ("train", "holdout")] + [pct(f[name]["full"])]
             for c, text in enumerate(cells):
                 self.fidelity.setItem(row, c, QTableWidgetItem(text))
         self.fidelity.resizeRowsToContents()
-        self.fidelity.setFixedHeight(self.fidelity.horizontalHeader().height()
-                                     + sum(self.fidelity.rowHeight(r) for r in range(2)) + 4)
+        self.fidelity.setFixedHeight(self.fidelity.horizontalHeader().height() + sum(
+            self.fidelity.rowHeight(r) for r in range(len(trees))) + 4)
         w = res.weighted_fidelity
         self.fidelity_note.setText(
             f"Weighted by the ensemble's confidence: surrogate {pct(w['surrogate']['holdout'])}, "
@@ -444,11 +450,13 @@ class SurrogatePage(Page):
         self.cert.set_rows([
             ("In words", certificate_line(self.review)),
             ("Status", status), ("Objective", num(cert.get("objective"))),
-            ("Bound", num(cert.get("bound"))),
+            ("Bound", f"{num(cert.get('bound'))} on every training row" + (
+                f" (method: {cert['bound_method']})" if cert.get("bound_method") else "")),
             ("Gap", "—" if cert.get("gap") is None else f"{100 * cert['gap']:.1f}%" + (
                 " (the bound has not left zero: nothing is proved about optimality yet)"
                 if cert.get("bound") is not None and abs(cert["bound"]) < 1e-12
                 and (cert.get("objective") or 0) > 0 else "")),
+            ("Program's own bound", f"{num(cert.get('program_bound'))} on its sample only"),
             ("Time", f"{num(cert.get('time'), '.1f')} s (solve {num(cert.get('solve_time'), '.1f')} s, "
                      f"build {num(cert.get('build_time'), '.2f')} s)"),
             ("Program's sample", f"{sample.get('points', '—')} points for "
