@@ -66,6 +66,24 @@ def test_every_step_has_results(sample_review):
     assert set(files) == {"html", "pdf", "manifest"}
 
 
+def test_the_models_own_performance_is_scikit_learns(sample_review):
+    # Reference: scikit-learn's roc_auc_score, brier_score_loss and confusion_matrix on the
+    # same rows (the review data with its target) and the model's own probabilities.
+    from sklearn.metrics import brier_score_loss, confusion_matrix, roc_auc_score
+
+    review = sample_review[0]
+    perf = review.intake.performance
+    y, proba, classes = review.data.y, review.predicted_proba(), review.forest.classes_
+    positive = y == classes[1]
+    assert perf.n_rows == y.shape[0]
+    assert perf.roc_auc == pytest.approx(roc_auc_score(positive, proba[:, 1]), abs=1e-12)
+    assert perf.brier == pytest.approx(brier_score_loss(positive, proba[:, 1]), abs=1e-12)
+    np.testing.assert_array_equal(perf.confusion, confusion_matrix(
+        y, classes[np.argmax(proba, axis=1)], labels=classes))
+    low, high = perf.roc_auc_interval
+    assert low < perf.roc_auc < high
+
+
 @needs_poppler
 def test_pdf_has_the_sections(sample_review):
     _, files, _ = sample_review
@@ -73,7 +91,8 @@ def test_pdf_has_the_sections(sample_review):
                           text=True, check=True).stdout
     flat = " ".join(text.split())
     for section in ("Model review", "Summary", "Intake", "Anatomy", "Proximity", "Surrogate",
-                    "Solver certificate", "Cases where the surrogate and the ensemble disagree",
+                    "Solver certificate", "The model's own performance", "ROC AUC",
+                    "Cases where the surrogate and the ensemble disagree",
                     "Limitations and cautions", "How to reproduce this review", "Sign-off",
                     "R. Okafor", "approved with conditions", "re-review after retraining"):
         assert section in flat, section

@@ -320,6 +320,9 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     print(f"  exactness     {review.intake.exactness.text()}")
     _print_fidelities(sur, "  ")
     print(f"  certificate   {certificate_line(review)}")
+    perf = getattr(review.intake, "performance", None)
+    if perf is not None:
+        print(f"  model         {perf.text().splitlines()[0]}")
     print(f"  relies on     {reliance_text(review_reliance(review))}")
     for spot in weak_spots(review):
         _say(f"  weak spot: {spot.text}", sys.stdout)

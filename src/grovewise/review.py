@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import CancelledError, GrovewiseError, SettingError  # noqa: F401 (re-exported)
+from .errors import CancelledError, DataError, GrovewiseError, SettingError  # noqa: F401 (re-exported)
 from .forest import Forest
 from .hashing import sha256_of
 from .loaders import Dataset, from_estimator, load_data, load_native
@@ -176,6 +176,9 @@ class IntakeResult:
     train_rows: np.ndarray  # indices into the review data used to fit the surrogate
     holdout_rows: np.ndarray  # indices held out (empty when a holdout file is given)
     holdout_source: str  # "split", "file" or "none"
+    # the model's own performance on the review data when it has the target (a summary,
+    # not a validation: grovewise.analysis.performance); None without a target
+    performance: object = None
 
 
 @dataclass
@@ -353,6 +356,7 @@ class Review:
                                  f"predictions on {inp.data}: {exactness.text()}. The review "
                                  "stops here; report the model type and library versions.")
         train, held = self._split(predicted, holdout is None)
+        performance = self._performance(data, forest, proba, report)
         from .analysis.flags import check_flags
 
         st.flags = check_flags(forest.feature_names, st.flags)
@@ -365,7 +369,25 @@ class Review:
             data_summary=data.to_dict(), notes=list(data.notes),
             train_rows=train, holdout_rows=held,
             holdout_source="file" if holdout is not None else
-            ("split" if held.size else "none"))
+            ("split" if held.size else "none"), performance=performance)
+
+    def _performance(self, data, forest, proba, report):
+        """The model's performance on the review data when the target is there; a target
+        whose labels are not the model's classes gets a note instead (the review goes on)."""
+        if data.y is None:
+            return None
+        from .analysis.performance import model_performance
+
+        n, K = proba.shape
+        report("intake", 0.97, f"the model's own performance on {n:,} rows")
+        # the bootstrap (more than two classes) costs n_boot sorts of every row
+        n_boot = int(np.clip(2e7 / max(n * K, 1), 100, 1000))
+        try:
+            return model_performance(data.y, proba, forest.classes_, seed=self.settings.seed,
+                                     n_boot=n_boot)
+        except DataError as exc:
+            data.notes.append(f"The model's performance was not computed: {exc}")
+            return None
 
     def _split(self, predicted: np.ndarray, split: bool) -> tuple[np.ndarray, np.ndarray]:
         """Train and holdout rows, stratified by the ensemble's predicted class (seeded)."""

@@ -282,6 +282,27 @@ def _intake(doc: Document, review) -> None:
     _model_inputs(doc, intake.summary)
     for note in notes:
         doc.add(Paragraph(note, "note"))
+    _performance(doc, review)
+
+
+def _performance(doc: Document, review) -> None:
+    """The model's own performance on the review data (when it has the target)."""
+    perf = getattr(review.intake, "performance", None)
+    if perf is None:
+        return
+    doc.add(Heading("The model's own performance", 2))
+    for line in perf.text().splitlines():
+        doc.add(Paragraph(line, "caution" if line == perf.caution else "body"))
+    classes = list(perf.classes)
+    doc.add(Table(["true class"] + [f"predicted {c}" for c in classes],
+                  [[c] + [int(v) for v in row] for c, row in zip(classes, perf.confusion)],
+                  caption="Confusion matrix at the model's own rule (the class of largest "
+                          "probability), review data"))
+    doc.add(Table(["from", "to", "rows", "mean predicted", "observed share"],
+                  [[b.lower, b.upper, b.count, b.mean_predicted, b.observed_share]
+                   for b in perf.reliability],
+                  caption=f"Reliability ({perf.reliability_definition})",
+                  formats=[".2f", ".2f", ",d", ".3f", ".3f"]))
 
 
 value_text = fe.value_text  # a row's value as the data gives it (a category by name)
