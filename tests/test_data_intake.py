@@ -456,3 +456,21 @@ def test_bundled_sample_loads_and_predicts_like_its_libraries():
         np.testing.assert_allclose(forest.predict_proba(data.X), reference, rtol=0, atol=tol)
         # Plausible, not perfect: held-out AUC (scikit-learn's roc_auc_score).
         assert 0.75 <= roc_auc_score(data.y, reference[:, 1]) <= 0.92
+
+
+def test_group_columns_are_kept_as_the_file_gives_them(tmp_path, cancer, named_model):
+    # Reference: the frame written to the file (a column that is not a model input, with
+    # empty cells) read back by pandas.
+    frame, _ = cancer
+    _, forest = named_model
+    frame = frame.copy()
+    frame["site"] = np.where(np.arange(len(frame)) % 3 == 0, "north", "south")
+    frame.loc[5, "site"] = None
+    path = write_csv(tmp_path, frame)
+    data = load_data(path, forest=forest, target=TARGET, groups=["site", "record_id"])
+    site = data.group_values["site"]
+    assert site[5] is None and site[0] == "north" and site[1] == "south"
+    assert (site == "north").sum() == (frame["site"] == "north").sum()
+    assert data.group_values["record_id"].tolist() == frame["record_id"].tolist()
+    raises_data_error("'clinic'", "not in the file", path=path, forest=forest, target=TARGET,
+                      groups=["clinic"])

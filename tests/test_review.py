@@ -66,6 +66,33 @@ def test_every_step_has_results(sample_review):
     assert set(files) == {"html", "pdf", "manifest"}
 
 
+def test_fidelity_per_group_of_the_protected_feature(sample_review):
+    # Reference: pandas over the holdout rows (quantile bins recomputed here) and scipy's
+    # binomtest(...).proportion_ci(method="wilson") for the intervals.
+    import pandas as pd
+    from scipy.stats import binomtest
+
+    review = sample_review[0]
+    sur = review.surrogate
+    [gf] = sur.group_fidelity
+    assert gf.name == "age_years"
+    X, held = review._surrogate_rows()
+    labels = review.forest.classes_[np.argmax(review.rows_proba(), axis=1)]
+    agree = sur.surrogate.predict(review.filled(X)) == labels
+    age = X[held, review.forest.feature_names.index("age_years")]
+    edges = np.unique(np.quantile(age, np.linspace(0, 1, 6)))
+    frame = pd.DataFrame({"bin": np.clip(np.searchsorted(edges, age, side="right") - 1, 0,
+                                         len(edges) - 2), "agree": agree[held]})
+    got = frame.groupby("bin")["agree"].agg(["sum", "count"])
+    assert [g.rows for g in gf.groups] == got["count"].tolist()
+    for g, (k, n) in zip(gf.groups, got.itertuples(index=False)):
+        assert g.fidelity["surrogate"] == pytest.approx(k / n)
+        ci = binomtest(int(k), int(n)).proportion_ci(method="wilson")
+        assert g.interval["surrogate"] == pytest.approx((ci.low, ci.high))
+        assert g.too_small == (n < 30)
+    assert "By age_years, the surrogate's fidelity ranges from" in gf.sentence()
+
+
 def test_the_models_own_performance_is_scikit_learns(sample_review):
     # Reference: scikit-learn's roc_auc_score, brier_score_loss and confusion_matrix on the
     # same rows (the review data with its target) and the model's own probabilities.
@@ -92,6 +119,7 @@ def test_pdf_has_the_sections(sample_review):
     flat = " ".join(text.split())
     for section in ("Model review", "Summary", "Intake", "Anatomy", "Proximity", "Surrogate",
                     "Solver certificate", "The model's own performance", "ROC AUC",
+                    "Faithfulness per group", "By age_years",
                     "Cases where the surrogate and the ensemble disagree",
                     "Limitations and cautions", "How to reproduce this review", "Sign-off",
                     "R. Okafor", "approved with conditions", "re-review after retraining"):
@@ -256,12 +284,18 @@ def test_review_command_line(tmp_path, capsys):
     paths = sample_paths()
     code = main(["review", str(paths["forest"]), str(paths["data"]), "--target", "complication",
                  "--out", str(tmp_path / "o"), "--time-limit", "4", "--depth", "1",
-                 "--reviewer", "A. Lind"])
+                 "--reviewer", "A. Lind", "--group", "smoker"])
     assert code == 0
     out = capsys.readouterr().out
-    assert "surrogate     fidelity" in out and "report.pdf" in out
+    assert "surrogate (winning stage" in out and "report.pdf" in out
+    assert "(95% interval" in out and "certificate   No tree of depth 1" in out
+    assert "by group      By smoker, the surrogate's fidelity" in out
+    assert "model         ROC AUC" in out
     assert (tmp_path / "o" / "manifest.json").is_file()
-    assert Review.open(tmp_path / "o" / "review").reviewer.name == "A. Lind"
+    reopened = Review.open(tmp_path / "o" / "review")
+    assert reopened.reviewer.name == "A. Lind"
+    assert reopened.settings.group_columns == ["smoker"]
+    assert [g.name for g in reopened.surrogate.group_fidelity] == ["smoker"]
     bad = main(["review", str(paths["forest"]), str(paths["data"]), "--target", "nope",
                 "--out", str(tmp_path / "p")])
     assert bad == 2

@@ -297,7 +297,9 @@ def _settings_from(args):
                           alpha=args.alpha, proximity_threshold=args.proximity_threshold,
                           time_limit=args.time_limit, node_limit=args.node_limit,
                           holdout_share=args.holdout_share, seed=args.seed,
-                          flags=_parse_flags(args.flag), permutation_rows=args.permutation_rows,
+                          flags=_parse_flags(args.flag),
+                          group_columns=list(getattr(args, "group", None) or []),
+                          permutation_rows=args.permutation_rows,
                           exactness_rows=args.exactness_rows,
                           proximity_rows=args.proximity_rows).validate()
 
@@ -320,6 +322,8 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     print(f"  exactness     {review.intake.exactness.text()}")
     _print_fidelities(sur, "  ")
     print(f"  certificate   {certificate_line(review)}")
+    for gf in getattr(sur, "group_fidelity", None) or []:
+        print(f"  by group      {gf.sentence()}")
     perf = getattr(review.intake, "performance", None)
     if perf is not None:
         print(f"  model         {perf.text().splitlines()[0]}")
@@ -546,6 +550,9 @@ def _add_solve_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=d.seed, help=f"seed of every random step (default {d.seed})")
     p.add_argument("--flag", action="append", metavar="FEATURE=KIND",
                    help="mark a feature protected or forbidden (repeatable)")
+    p.add_argument("--group", action="append", metavar="COL",
+                   help="a column of the data (a model input or not) whose groups get their "
+                        "own fidelity, beside every protected feature (repeatable)")
     p.add_argument("--jobs", type=int, default=None, metavar="N",
                    help="CPU cores the steps use (default: all); results do not depend on it")
     for name, what in (("permutation_rows", "permutation importance"),

@@ -78,6 +78,9 @@ class ReviewSettings:
     holdout_share: float = 0.3
     seed: int = 0
     flags: dict[str, str] = field(default_factory=dict)
+    # Columns of the data (model inputs or not) whose groups get their own fidelity, beside
+    # every feature flagged protected (grovewise.analysis.group_fidelity).
+    group_columns: list[str] = field(default_factory=list)
     permutation_repeats: int = 5
     # Rows for the steps whose cost grows fastest with the data; 0 means every row. A larger
     # data set is sampled (seeded, stratified by the predicted class) and the report says so.
@@ -111,6 +114,9 @@ class ReviewSettings:
             ("holdout_share", 0 <= float(self.holdout_share) < 0.9, "from 0 to below 0.9"),
             ("seed", isinstance(self.seed, (int, np.integer)) and self.seed >= 0,
              "a whole number of 0 or more"),
+            ("group_columns", isinstance(self.group_columns, (list, tuple)) and all(
+                isinstance(c, str) and c for c in self.group_columns),
+             "a list of column names"),
             ("permutation_repeats", int(self.permutation_repeats) >= 1, "at least 1"),
             ("permutation_rows", _whole(self.permutation_rows) and (
                 self.permutation_rows == 0 or self.permutation_rows >= 10),
@@ -337,10 +343,11 @@ class Review:
         forest = from_estimator(native)
         check_cancel(cancel, "intake")
         report("intake", 0.15, f"model read; reading the review data {inp.data.name}")
-        data = load_data(inp.data, forest=forest, target=inp.target)
+        data = load_data(inp.data, forest=forest, target=inp.target, groups=st.group_columns)
         holdout = None
         if inp.holdout is not None:
-            holdout = load_data(inp.holdout, forest=forest, target=inp.target)
+            holdout = load_data(inp.holdout, forest=forest, target=inp.target,
+                                groups=st.group_columns)
         meter = StepMeter(report, "intake", data.X.shape[0], "rows predicted", cancel=cancel,
                           start=0.3, span=0.35)
         proba = proba_in_blocks(forest, data.X, meter)
@@ -547,7 +554,39 @@ class Review:
                            threads=1)  # HiGHS's answer changes with its threads; ours must not
             self.program_mps = gzip.compress(program.read_bytes(), compresslevel=1, mtime=0) \
                 if program.is_file() else None
+        result.group_fidelity = self._group_fidelity(result, X, proba)
         return result
+
+    def _group_fidelity(self, result, X: np.ndarray, proba: np.ndarray) -> list:
+        """The surrogate's, the greedy tree's and the exact axis tree's fidelity per group of
+        every protected feature and every group column, on the holdout rows (the training
+        rows without a holdout)."""
+        from .analysis.group_fidelity import group_fidelity
+
+        st = self.settings
+        labels = self.forest.classes_[np.argmax(proba, axis=1)]
+        filled = self.filled(X)
+        agree = {"surrogate": result.surrogate.predict(filled) == labels,
+                 "greedy": result.greedy.predict(filled) == labels}
+        if getattr(result, "greedy_optimal", None) is not None:
+            agree["optimal_axis"] = result.greedy_optimal.predict(filled) == labels
+        rows = result.holdout_rows if result.holdout_rows.size else result.train_rows
+        names = list(self.forest.feature_names)
+        categories = getattr(self.forest, "categories", None) or {}
+        out = []
+        for feature, kind in st.flags.items():
+            if kind != "protected" or feature not in names:
+                continue
+            j = names.index(feature)
+            cats = categories.get(j)
+            out.append(group_fidelity(X[:, j], agree, name=feature, rows=rows,
+                                      categories=None if cats is None else dict(enumerate(cats))))
+        for column in st.group_columns:
+            values = self.data.group_values[column]
+            if self.holdout_data is not None:
+                values = np.concatenate([values, self.holdout_data.group_values[column]])
+            out.append(group_fidelity(values, agree, name=column, rows=rows))
+        return out
 
     def write_program(self, path) -> Path:
         """Write the program HiGHS solved in the surrogate step (on its sample) as MPS."""

@@ -59,6 +59,9 @@ class Dataset:
         Name of the target column.
     notes : list of str
         Things the reader should know (matching by position, extra columns, no model given).
+    group_values : dict of str to ndarray
+        The columns asked for as groups (``load_data(groups=...)``), as the file gives them
+        (object arrays, None where a cell is empty); they need not be model inputs.
     """
 
     X: np.ndarray
@@ -70,6 +73,7 @@ class Dataset:
     matched_by: str = MATCH_BY_NAME
     target: str | None = None
     notes: list[str] = field(default_factory=list)
+    group_values: dict = field(default_factory=dict)
 
     @property
     def n_rows(self) -> int:
@@ -115,7 +119,7 @@ class Dataset:
         }
 
 
-def load_data(path, forest=None, target: str | None = None) -> Dataset:
+def load_data(path, forest=None, target: str | None = None, groups=()) -> Dataset:
     """Read a CSV or Parquet file into a :class:`Dataset` checked against ``forest``.
 
     Parameters
@@ -129,6 +133,9 @@ def load_data(path, forest=None, target: str | None = None) -> Dataset:
         feature.
     target : str, optional
         Name of the column holding the true labels.
+    groups : list of str, optional
+        Columns kept as they are (``Dataset.group_values``), to measure faithfulness per group;
+        any column of the file, a model input or not.
 
     Returns
     -------
@@ -175,9 +182,17 @@ def load_data(path, forest=None, target: str | None = None) -> Dataset:
         notes.append(f"ignored {len(extras)} column(s) that are not features: {_names(extras)}")
     X = _feature_matrix(table, features, p, no_model=forest is None, forest=forest)
     y = None if target is None else _target_values(table[target], forest, target, p)
+    missing = [g for g in groups if g not in columns]
+    if missing:
+        raise DataError(f"{p}: the group column(s) {_names(missing)} are not in the file"
+                        f"{_close_hint(missing, columns)}; the file's columns are "
+                        f"{_names(columns)}. Name a column of the data file.")
+    group_values = {g: np.array([None if pd.isna(v) else v for v in table[g].tolist()],
+                                dtype=object) for g in groups}
     return Dataset(X=X, y=y, feature_names=names, source=str(path),
                    sha256=hashlib.sha256(raw).hexdigest(), extra_columns=extras,
-                   matched_by=matched_by, target=target, notes=notes)
+                   matched_by=matched_by, target=target, notes=notes,
+                   group_values=group_values)
 
 
 # ---------------------------------------------------------------------- reading

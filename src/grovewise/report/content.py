@@ -127,6 +127,28 @@ def _proof_text(proof) -> str:
             f"{solved} to optimality")
 
 
+def _groups(doc: Document, review) -> None:
+    """Faithfulness per group of every protected feature and group column."""
+    sur = review.surrogate
+    found = getattr(sur, "group_fidelity", None) or []
+    if not found:
+        return
+    part = "holdout" if sur.holdout_rows.size else "training"
+    doc.add(Heading("Faithfulness per group", 2))
+    doc.add(Paragraph(f"Fidelity (unweighted) on the {part} rows of each group, with its 95% "
+                      "Wilson interval; a group of fewer than 30 rows is marked too small to "
+                      "judge and left out of the gaps.", "note"))
+    for gf in found:
+        doc.add(Paragraph(gf.sentence()))
+        trees = [t for t in ("surrogate", "greedy") if t in gf.trees]
+        rows = [[g.label, g.rows] + [f"{pct(g.fidelity[t])} ({pct(g.interval[t][0])} to "
+                                     f"{pct(g.interval[t][1])})" for t in trees]
+                + ["too small" if g.too_small else ""] for g in gf.groups]
+        doc.add(Table(["group", "rows"] + [f"{t} fidelity (95% interval)" for t in trees]
+                      + [""], rows, caption=f"Fidelity per group of {gf.name} ({gf.grouping})",
+                      formats=[None, ",d"] + [None] * (len(trees) + 1)))
+
+
 def _depth_text(review) -> str:
     """``depth 2``, or ``depth 1 used of 2 allowed`` when splits that decide nothing were
     left out."""
@@ -460,6 +482,7 @@ def _surrogate(doc: Document, review) -> None:
                    for l in sur.leaves if l.get("reachable", True)], caption="Leaves (a leaf no "
                   "row can reach is left out)",
                   formats=[None, None, ",d", ".1%", ".1%", ",d", ".1%"]))
+    _groups(doc, review)
     cert = sur.certificate
     doc.add(Heading("Solver certificate", 2))
     doc.add(KeyValues([

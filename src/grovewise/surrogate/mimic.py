@@ -103,6 +103,9 @@ class MimicResult:
     train_rows: np.ndarray = field(repr=False)
     holdout_rows: np.ndarray = field(repr=False)
     category_order: object = None
+    # fidelity per group of the protected features and group columns (set by a review:
+    # grovewise.analysis.group_fidelity.GroupFidelity each)
+    group_fidelity: list = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return to_plain({
