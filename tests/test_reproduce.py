@@ -112,3 +112,41 @@ def test_a_decision_from_the_command_line_is_recorded_and_checked(written, tmp_p
                  "--conditions", " "]) == 2
     assert "conditions" in capsys.readouterr().err
     assert main(["decide", str(tmp_path / "nowhere"), "--decision", "reject"]) == 2
+
+
+def test_a_signed_review_verifies_and_names_any_file_changed_after(written, tmp_path, capsys,
+                                                                   monkeypatch):
+    # Reference: cryptography's own Ed25519 verify over the payload rebuilt here.
+    import base64
+
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PublicKey
+
+    monkeypatch.setenv("GROVEWISE_KEY", str(tmp_path / "keys" / "me.pem"))
+    folder = _copy(written, tmp_path)
+    assert main(["sign", str(folder)]) == 0
+    assert "made a signing key" in capsys.readouterr().out
+    record = json.loads((folder / "signature.json").read_text())
+    assert {"manifest.json", "report.html", "report.pdf"} <= set(record["files"])
+    assert any(n.startswith("review/") for n in record["files"])
+    payload = json.dumps({k: record[k] for k in ("files", "format", "public_key", "signed_at")},
+                         sort_keys=True, separators=(",", ":")).encode()
+    Ed25519PublicKey.from_public_bytes(base64.b64decode(record["public_key"])).verify(
+        base64.b64decode(record["signature"]), payload)  # raises if it does not hold
+    assert main(["verify", str(folder)]) == 0
+    verdict = reproduce(folder / "manifest.json", refit=False)
+    assert verdict.passed and any(name == "signature" for name, _, _ in verdict.checks)
+    # a decision would break the signature: refused unless signed again
+    assert main(["decide", str(folder), "--decision", "reject"]) == 2
+    assert "--sign" in capsys.readouterr().err
+    assert main(["decide", str(folder), "--decision", "reject", "--sign"]) == 0
+    assert main(["verify", str(folder)]) == 0
+    # one byte of the PDF changed: the check fails and names the file
+    pdf = folder / "report.pdf"
+    raw = bytearray(pdf.read_bytes())
+    raw[len(raw) // 2] ^= 1
+    pdf.write_bytes(bytes(raw))
+    capsys.readouterr()
+    assert main(["verify", str(folder)]) == 1
+    assert "report.pdf changed after signing" in capsys.readouterr().out
+    verdict = reproduce(folder / "manifest.json", refit=False)
+    assert ("signature", False) == next((n, ok) for n, ok, _ in verdict.checks if n == "signature")

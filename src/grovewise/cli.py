@@ -385,12 +385,52 @@ def cmd_decide(args) -> int:
     """Record or change the decision on a written review folder."""
     from .decision import record_decision
 
+    from .errors import SettingError
+    from .signing import is_signed
+
+    signed = is_signed(args.folder)
+    if signed and not args.sign:
+        raise SettingError(f"{args.folder} is signed: recording a decision rewrites the files "
+                           "the signature covers, so the signature would no longer hold. Add "
+                           "--sign to sign the review again with your key after the decision.")
     files = record_decision(args.folder, args.decision, conditions=args.conditions or "",
                             notes=args.note, name=args.reviewer, role=args.role)
     print(f"decision recorded in {args.folder}: {args.decision}")
     for kind, path in files.items():
         print(f"  {kind:<13} {path}")
+    if args.sign:
+        _sign(args.folder)
     return 0
+
+
+def cmd_sign(args) -> int:
+    """Sign a written review with the reviewer's own key (made on first use)."""
+    _sign(args.folder)
+    return 0
+
+
+def _sign(folder) -> None:
+    from .signing import (default_key_path, key_fingerprint, load_or_create_key,
+                          sign_review, written_review_files)
+
+    key_path = default_key_path()
+    key, created = load_or_create_key(key_path)
+    names = written_review_files(folder)
+    sign_review(folder, names, key=key)
+    if created:
+        print(f"made a signing key for you at {key_path} (keep it private; only its public "
+              "half goes into reviews)")
+    print(f"signed {len(names)} files of {folder} with key {key_fingerprint(key)}; "
+          f"`grovewise verify {folder}` checks that none changed since")
+
+
+def cmd_verify(args) -> int:
+    """Say whether any file of a signed review changed after signing."""
+    from .signing import check_signature
+
+    check = check_signature(args.folder)
+    print(check.text())
+    return 0 if check.ok else 1
 
 
 def cmd_demo(args) -> int:
@@ -673,7 +713,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reviewer", help="the reviewer's name (kept if not given)")
     p.add_argument("--role", help="the reviewer's role (kept if not given)")
     _add_decision_args(p, required=True)
+    p.add_argument("--sign", action="store_true",
+                   help="sign the review again with your key after recording the decision "
+                        "(needed when the review was signed)")
     p.set_defaults(func=cmd_decide)
+
+    p = sub.add_parser("sign", help="sign a written review with your own key (made on first "
+                                    "use, kept outside the review)")
+    p.add_argument("folder", metavar="FOLDER", help="the --out folder of a review")
+    p.set_defaults(func=cmd_sign)
+
+    p = sub.add_parser("verify", help="say whether any file of a signed review changed after "
+                                      "signing")
+    p.add_argument("folder", metavar="FOLDER", help="the --out folder of a signed review")
+    p.set_defaults(func=cmd_verify)
 
     p = sub.add_parser("demo", help="the review of the bundled sample")
     p.add_argument("--out", default="grovewise_demo", metavar="DIR",

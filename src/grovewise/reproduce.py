@@ -27,6 +27,7 @@ from .hashing import sha256_of
 from .plain import to_plain
 from .report.manifest import FORMAT, _strip_undigested, build_manifest, digest
 from .review import Review, ReviewInputs, ReviewSettings
+from .signing import check_signature, is_signed
 from .storage import StorageError, read_document
 
 EXACT_STEPS = ("intake", "anatomy", "proximity")
@@ -105,6 +106,10 @@ def reproduce(manifest_path, *, trusted: bool = False, progress=None,
     for name, sha in sorted(((saved_entry or {}).get("files") or {}).items()):
         _check_file(verdict, f"saved review file {saved_entry['path']}/{name}",
                     base / saved_entry["path"] / name, sha)
+    if is_signed(base):  # the reviewer's signature: no file changed since signing
+        check = check_signature(base)
+        verdict.add("signature", check.ok, "; ".join(check.problems) if check.problems
+                    else check.text())
     if not verdict.passed:
         return verdict
     if inputs.get("trusted") and not trusted:

@@ -372,3 +372,21 @@ def _create_key_file(path: Path, key: Ed25519PrivateKey) -> bool:
         finally:
             os.close(fd)
     return True
+
+
+def written_review_files(folder) -> list[str]:
+    """The files a written review's signature covers: the manifest, the reports and every
+    file of the saved review (which holds the recorded decision), as names in ``folder``."""
+    folder = Path(folder)
+    if not (folder / "manifest.json").is_file():
+        raise SettingError(f"{folder} is not a written review folder (no manifest.json); give "
+                           "the --out folder of `grovewise review`.")
+    names = [n for n in ("manifest.json", "report.html", "report.pdf") if (folder / n).is_file()]
+    saved = folder / "review"
+    if saved.is_dir():
+        names += sorted(p.relative_to(folder).as_posix() for p in saved.rglob("*") if p.is_file())
+    return names
+
+
+def is_signed(folder) -> bool:
+    return (Path(folder) / SIGNATURE_FILE).is_file()
