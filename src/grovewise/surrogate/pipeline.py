@@ -149,7 +149,6 @@ class PipelineResult:
         }
 
 
-BASELINES = ("greedy", "optimal_axis")
 # the status word when a baseline is the answer
 _FALLBACK = {"greedy": "greedy_fallback", "optimal_axis": "axis_fallback"}
 
@@ -157,10 +156,11 @@ _FALLBACK = {"greedy": "greedy_fallback", "optimal_axis": "axis_fallback"}
 class _Board:
     """The candidates so far, and the best of them.
 
-    Order: not below the better baseline's weighted fidelity (the greedy tree's, the exact
-    axis-aligned tree's: the answer never loses to a baseline, whatever alpha or proximity
-    asks); then fewer separated must-link groups; then
-    the lower objective. A must-link group is kept whenever a candidate that keeps it is at
+    Order: not below the greedy tree's weighted fidelity (the answer never loses to the
+    baseline, whatever alpha or proximity asks); then fewer separated must-link groups; then
+    the lower objective. So without must-link groups the answer's objective is never above
+    the exact axis-aligned tree's (a candidate too); with them, a tree that keeps more groups
+    wins over it. A must-link group is kept whenever a candidate that keeps it is at
     least as faithful as the greedy tree; the groups the answer separates are counted in its
     stage record (``separated_groups``), never dropped silently.
     """
@@ -169,7 +169,7 @@ class _Board:
         self.Xs, self.y, self.wn, self.K, self.st, self.group, self.t0 = Xs, y, wn, K, st, group, t0
         self.stages: list[StageRecord] = []
         self.best: tuple | None = None  # (key, name, tree)
-        self.floor: float | None = None  # the best baseline's weighted fidelity
+        self.floor: float | None = None  # the greedy tree's weighted fidelity
 
     def add(self, name: str, tree: ObliqueTree, started: float, note: str = "") -> ObliqueTree:
         tree = with_majority_classes(tree, self.Xs, self.y, self.wn, self.K)
@@ -181,21 +181,12 @@ class _Board:
                                        elapsed=now - self.t0, duration=now - started,
                                        separated_groups=sep, note=note,
                                        depth_used=depth_used(tree), tree=tree))
-        if name in BASELINES:
-            self.floor = fid if self.floor is None else max(self.floor, fid)
-            self._rank()
+        if self.floor is None:  # the greedy tree comes first
+            self.floor = fid
         key = (fid < self.floor - 1e-12, sep, obj)
         if self.best is None or key < self.best[0]:
             self.best = (key, name, tree)
         return tree
-
-    def _rank(self) -> None:
-        """Rank every candidate again (a new baseline can raise the floor)."""
-        self.best = None
-        for s in self.stages[:-1]:
-            key = (s.fidelity < self.floor - 1e-12, s.separated_groups, s.objective)
-            if self.best is None or key < self.best[0]:
-                self.best = (key, s.name, s.tree)
 
     @property
     def objective(self) -> float:
@@ -294,19 +285,33 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
             start_tree = axis_tree
         emit("optimal_axis")
 
-    # 2. node-by-node search from the greedy tree
+    # 2. node-by-node search from the greedy tree (and the exact axis tree when better)
     search = SearchSettings(admissible=st.admissible, penalty=st.penalty, alpha=st.alpha,
                             max_features=st.max_features, min_leaf_size=st.min_leaf_size,
                             solo=st.solo, seed=st.seed)
     if n_classes > 1 and not _stop(cancel):
         s0 = time.perf_counter()
         ls_deadline = until(s0 + st.local_search_share * st.time_limit)
-        t_ls, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
+        if start_tree is not gtree:
+            # from the exact axis-aligned tree, the better start, on half the share; then
+            # from the greedy tree too (whose splits may keep must-link groups the other
+            # separates)
+            ls_deadline = until(s0 + 0.5 * st.local_search_share * st.time_limit)
+            t_ax, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
+                              group=work.group, deadline=ls_deadline,
+                              should_stop=alive("local_search_axis"))
+            board.add("local_search_axis", t_ax, s0,
+                      note=" ".join(["from the exact axis-aligned tree", work.note]).strip())
+            emit("local_search_axis")
+            s0 = time.perf_counter()
+            ls_deadline = until(s0 + 0.5 * st.local_search_share * st.time_limit)
+        t_ls, _ = improve(gtree, work.Xs, work.y, work.w, n_classes, search,
                           group=work.group,
                           deadline=ls_deadline, should_stop=alive("local_search"))
         board.add("local_search", t_ls, s0, note=work.note)
         emit("local_search")
-        if group is not None and board.name != "local_search" and not _stop(cancel):
+        if group is not None and not board.name.startswith("local_search") \
+                and not _stop(cancel):
             # keeping every group costs too much fidelity: search without them as well
             s0 = time.perf_counter()
             t_free, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
