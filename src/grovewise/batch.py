@@ -127,16 +127,26 @@ def _number_or_none(value) -> float | None:
 
 
 # How a setting's value is read, by the type ReviewSettings declares for it.
+def _names(value) -> list[str]:
+    """Column names: a TOML list of strings, or text separated by semicolons (CSV)."""
+    if isinstance(value, str):
+        return [v.strip() for v in value.split(";") if v.strip()]
+    if isinstance(value, list) and all(isinstance(v, str) and v.strip() for v in value):
+        return [v.strip() for v in value]
+    raise ValueError
+
+
 READERS = {"int": (_whole, "a whole number"),
            "int | None": (_whole_or_none, "a whole number or none"),
            "float": (_number, "a number"),
-           "float | None": (_number_or_none, "a number or none")}
+           "float | None": (_number_or_none, "a number or none"),
+           "list[str]": (_names, "column names separated by semicolons")}
 
 
 @cache
 def settings_readers() -> dict:
-    """The review settings a line may set: every number of ReviewSettings, by its name
-    (``flags``, a mapping, is not one), each with how to read it."""
+    """The review settings a line may set: every number of ReviewSettings and the group
+    columns, by name (``flags``, a mapping, is not one), each with how to read it."""
     from dataclasses import fields
 
     from .review import ReviewSettings

@@ -250,10 +250,11 @@ def proba_in_blocks(forest: Forest, X: np.ndarray, meter: StepMeter | None = Non
 
 
 def _warm_up_surrogate() -> None:
-    from .surrogate import optimal_axis, pair_split, sweep_kernel
+    # only the sweep: compiling more here, beside a running window, holds the interpreter in
+    # long compiler calls (the window's stall tests measured 0.48 s against 0.25 s)
+    from .surrogate import sweep_kernel
 
-    for module in (sweep_kernel, pair_split, optimal_axis):
-        module.warm_up()
+    sweep_kernel.warm_up()
 
 
 class Review:
