@@ -13,7 +13,6 @@ from . import theme
 INCUMBENT, BOUND = "#2f6f8f", "#b0653a"
 STAGE_WORDS = {"greedy": "greedy tree", "trivial": "one-leaf tree", "local_search": "node search",
                "program": "MILP", "polish": "polish",
-               "local_search_axis": "node search from the axis tree",
                "optimal_axis": "exact axis-aligned tree", "proof": "proof"}
 
 

@@ -292,29 +292,22 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
     if n_classes > 1 and not _stop(cancel):
         s0 = time.perf_counter()
         ls_deadline = until(s0 + st.local_search_share * st.time_limit)
-        if start_tree is not gtree:
-            # from the exact axis-aligned tree, the better start, on half the share; then
-            # from the greedy tree too (whose splits may keep must-link groups the other
-            # separates)
-            ls_deadline = until(s0 + 0.5 * st.local_search_share * st.time_limit)
-            t_ax, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
-                              group=work.group, deadline=ls_deadline,
-                              should_stop=alive("local_search_axis"))
-            board.add("local_search_axis", t_ax, s0,
-                      note=" ".join(["from the exact axis-aligned tree", work.note]).strip())
-            emit("local_search_axis")
-            s0 = time.perf_counter()
-            ls_deadline = until(s0 + 0.5 * st.local_search_share * st.time_limit)
-        t_ls, _ = improve(gtree, work.Xs, work.y, work.w, n_classes, search,
+        # from the better baseline; with must-link groups from the greedy tree, whose splits
+        # keep groups that the exact axis tree's may separate (and a search from it could not
+        # repair: wine with three forced pairs, 2 separated against 0)
+        start = gtree if group is not None else start_tree
+        t_ls, _ = improve(start, work.Xs, work.y, work.w, n_classes, search,
                           group=work.group,
                           deadline=ls_deadline, should_stop=alive("local_search"))
-        board.add("local_search", t_ls, s0, note=work.note)
+        board.add("local_search", t_ls, s0, note=" ".join(
+            (["from the exact axis-aligned tree"] if start is not gtree else []) +
+            [work.note]).strip())
         emit("local_search")
         if group is not None and not board.name.startswith("local_search") \
                 and not _stop(cancel):
             # keeping every group costs too much fidelity: search without them as well
             s0 = time.perf_counter()
-            t_free, _ = improve(start_tree, work.Xs, work.y, work.w, n_classes, search,
+            t_free, _ = improve(start, work.Xs, work.y, work.w, n_classes, search,
                                 deadline=until(s0 + st.local_search_share * st.time_limit),
                                 should_stop=alive("local_search_free"))
             board.add("local_search_free", t_free, s0, note="must-link groups not enforced")
