@@ -615,7 +615,12 @@ class Review:
                              greedy=greedy, split=split,
                              disagreements=np.flatnonzero(surrogate != ensemble),
                              fill_values=self.fill_values())
-        result.effects = self._effects(result, allX, report, cancel)
+        try:
+            result.effects = self._effects(result, allX, report, cancel)
+        except CancelledError:
+            # the cases of a cancelled solve are still remade from the tree it handed back;
+            # the effects (seconds of work) wait for the next run
+            result.effects = None
         return result
 
     def _effects(self, cases: CasesResult, allX: np.ndarray, report: Progress,

@@ -74,6 +74,9 @@ class MainWindow(QMainWindow):
 
     def __init__(self, review: Review | None = None) -> None:
         super().__init__()
+        from ..surrogate import warm_up
+
+        warm_up()  # before the window shows: loading compiled code mid-solve stalled it
         self.setWindowTitle("Grovewise")
         self.setWindowIcon(app_icon())
         self.setAcceptDrops(True)
