@@ -181,6 +181,7 @@ def test_batch_on_two_workers(tmp_path, sample):
     assert not (out / ".grovewise-batch").exists()
 
 
+@pytest.mark.slow  # about 50 s: run on purpose with `pytest -m slow`
 def test_a_killed_worker_loses_no_finished_review(tmp_path, sample):
     names = ["first", "second", "third"]
     batch = _csv(tmp_path / "batch.csv", HEADER, [_good_row(sample, n) for n in names])

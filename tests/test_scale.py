@@ -119,6 +119,7 @@ def test_cancel_keeps_the_finished_steps_and_stops_within_two_seconds():
     assert review.done("intake") and not review.done("anatomy")
 
 
+@pytest.mark.slow  # about 50 s: run on purpose with `pytest -m slow`
 def test_jobs_never_change_a_result():
     digests = []
     for jobs in (1, 2):
