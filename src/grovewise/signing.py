@@ -382,7 +382,9 @@ def written_review_files(folder) -> list[str]:
         raise SettingError(f"{folder} is not a written review folder (no manifest.json); give "
                            "the --out folder of `grovewise review`.")
     names = [n for n in ("manifest.json", "report.html", "report.pdf") if (folder / n).is_file()]
-    saved = folder / "review"
+    from .batch import SAVED_REVIEW
+
+    saved = folder / SAVED_REVIEW
     if saved.is_dir():
         names += sorted(p.relative_to(folder).as_posix() for p in saved.rglob("*") if p.is_file())
     return names

@@ -98,10 +98,6 @@ def fidelity_text(result, part: str, model: str = "surrogate") -> str:
     return f"{pct(v)} (95% interval {pct(ci[0])} to {pct(ci[1])})" if ci else pct(v)
 
 
-def _fidelity_text(fid: dict, part: str, review, model: str = "surrogate") -> str:
-    return fidelity_text(review.surrogate, part, model)
-
-
 def _axis_rows(review) -> list[tuple[str, str]]:
     """The exact axis-aligned tree's summary row (none for a review saved before it, or at
     depth 3 and more, where it is not computed)."""
@@ -112,8 +108,8 @@ def _axis_rows(review) -> list[tuple[str, str]]:
     ax = (sur.certificate.get("optimal_axis") or {})
     proven = "proven optimal" if ax.get("optimal") else "best found, not proven"
     return [("Exact axis-aligned tree", f"same depth, {proven}; fidelity (unweighted) "
-             f"{_fidelity_text(fid, 'train', review, 'optimal_axis')} train / "
-             f"{_fidelity_text(fid, 'holdout', review, 'optimal_axis')} holdout")]
+             f"{fidelity_text(sur, 'train', 'optimal_axis')} train / "
+             f"{fidelity_text(sur, 'holdout', 'optimal_axis')} holdout")]
 
 
 def _proof_text(proof) -> str:
@@ -222,7 +218,6 @@ def _summary(doc: Document, review) -> None:
     from ..weak_spots import weak_spots
 
     s, intake, sur = review.intake.summary, review.intake, review.surrogate
-    fid = sur.fidelity
     relies = review_reliance(review)
     rows = [
         ("Model", f"{s.kind.replace('_', ' ')} ({s.library}), {s.n_trees} trees, depth "
@@ -232,11 +227,11 @@ def _summary(doc: Document, review) -> None:
         ("Exactness", intake.exactness.text()),
         ("Relies most on", reliance_text(relies)),
         ("Surrogate", f"{_depth_text(review)}, fidelity (unweighted) "
-                      f"{_fidelity_text(fid, 'train', review)} train / "
-                      f"{_fidelity_text(fid, 'holdout', review)} holdout"),
+                      f"{fidelity_text(sur, 'train')} train / "
+                      f"{fidelity_text(sur, 'holdout')} holdout"),
         ("Greedy tree", f"same depth, fidelity (unweighted) "
-                        f"{_fidelity_text(fid, 'train', review, 'greedy')} train / "
-                        f"{_fidelity_text(fid, 'holdout', review, 'greedy')} holdout"),
+                        f"{fidelity_text(sur, 'train', 'greedy')} train / "
+                        f"{fidelity_text(sur, 'holdout', 'greedy')} holdout"),
         *_axis_rows(review),
         ("Certificate", certificate_line(review)),
         ("Solver", f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),

@@ -40,7 +40,7 @@ from pathlib import Path
 import numpy as np
 
 from .program import ProgramData, build_program
-from .solver import compile_program, quiet_highs, solve
+from .solver import compile_program, solve, write_compiled_mps
 from .tree import n_leaves
 
 ALL_ROWS = 200  # data up to this many rows is proved as one part
@@ -244,15 +244,13 @@ def _prove_part(Xs, y, wn, rows, K, depth, admissible, max_features, solo, time_
     res = solve(cp, time_limit=limit, node_limit=node_limit, seed=seed, threads=1)
     bound = max(float(res.bound or 0.0), 0.0)
     return PartProof(rows=rows, bound=bound, objective=res.objective, status=res.status,
-                     seconds=res.time, nodes=res.nodes, mps=_mps_bytes(cp.lp))
+                     seconds=res.time, nodes=res.nodes, mps=_mps_bytes(cp))
 
 
-def _mps_bytes(lp) -> np.ndarray:
+def _mps_bytes(compiled) -> np.ndarray:
     """The program as MPS text (HiGHS's own writer), gzipped, so it can be kept and saved."""
-    h = quiet_highs()
-    h.passModel(lp)
     with tempfile.TemporaryDirectory() as scratch:
         path = Path(scratch) / "part.mps"
-        h.writeModel(str(path))
+        write_compiled_mps(compiled, path)
         packed = gzip.compress(path.read_bytes(), compresslevel=1, mtime=0)
     return np.frombuffer(packed, dtype=np.uint8).copy()
