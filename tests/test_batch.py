@@ -18,7 +18,8 @@ from grovewise.executor import Executor
 from grovewise.review import ReviewSettings
 from grovewise.sample_data import sample_paths
 
-TINY = {"depth": 1, "time_limit": 2, "permutation_repeats": 1}  # a review in ~10 s
+TINY = {"depth": 1, "time_limit": 2, "permutation_repeats": 1,
+        "stability_resamples": 2}  # a review in ~10 s
 
 
 @pytest.fixture(scope="module")

@@ -36,7 +36,7 @@ from grovewise.sampling import stratified_rows
 ROWS, PAIR_ROWS, SEED = 300, 60, 1
 SETTINGS = dict(depth=1, time_limit=60, node_limit=20, permutation_repeats=1,
                 permutation_rows=500, exactness_rows=1000, proximity_rows=300, seed=SEED,
-                effects_rows=ROWS, interaction_rows=PAIR_ROWS)
+                effects_rows=ROWS, interaction_rows=PAIR_ROWS, stability_resamples=0)
 POPPLER = all(shutil.which(t) for t in ("pdftotext", "pdfimages", "pdftoppm"))
 needs_poppler = pytest.mark.skipif(not POPPLER, reason="poppler-utils is not installed; "
                                    "`.ci/run` installs it")

@@ -16,7 +16,8 @@ from grovewise.review import ReviewInputs, ReviewSettings
 from grovewise.sample_data import sample_paths
 
 SETTINGS = dict(depth=2, time_limit=60, node_limit=20, permutation_repeats=1,
-                permutation_rows=500, exactness_rows=1000, proximity_rows=300, seed=1)
+                permutation_rows=500, exactness_rows=1000, proximity_rows=300, seed=1,
+                stability_resamples=2)
 
 
 @pytest.fixture(scope="module")
@@ -26,8 +27,9 @@ def written(tmp_path_factory):
     paths = sample_paths()
     model = shutil.copy(paths["forest"], folder / "model.skops")
     data = shutil.copy(paths["data"], folder / "data.csv")
+    second = shutil.copy(paths["xgboost"], folder / "second.json")
     out = folder / "review_out"
-    write_review_folder(ReviewInputs(model, data, target=paths["target"]),
+    write_review_folder(ReviewInputs(model, data, target=paths["target"], second_model=second),
                         ReviewSettings(**SETTINGS), out)
     return out
 
@@ -49,6 +51,33 @@ def test_an_untouched_review_reproduces_exactly(written):
     # node-limited: the re-fit gives the identical tree, not an approximately equal one
     assert ("re-fit surrogate results", True, "identical") in verdict.checks
     assert ("re-fit cases results", True, "identical") in verdict.checks
+    assert ("re-fit stability results", True, "identical") in verdict.checks
+    assert ("re-fit second_model results", True, "identical") in verdict.checks
+    assert "stability figures counted again" in names
+    assert "second model's agreement re-counted from its file" in names
+    assert "second model file" in names
+
+
+@pytest.mark.parametrize("key, path", [
+    ("stability", ("surrogate", "pairwise_agreement")),
+    ("stability", ("greedy", "fidelity", "max")),
+    ("second_model", ("agreement",)),
+    ("second_model", ("explains", "surrogate", "to_second")),
+])
+def test_a_changed_stability_or_second_model_figure_is_named(written, tmp_path, key, path):
+    folder = _copy(written, tmp_path)
+    manifest_path = folder / "manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    node = manifest[key]
+    for part in path[:-1]:
+        node = node[part]
+    node[path[-1]] = round(node[path[-1]] + 0.0123, 4)
+    manifest_path.write_text(json.dumps(manifest, indent=1))
+    verdict = reproduce(manifest_path, refit=False)
+    assert not verdict.passed
+    detail = dict((n, d) for n, _, d in verdict.checks)["manifest.json figures against the "
+                                                       "saved review"]
+    assert f"{key.replace('_', ' ')} figures stated differ" in detail
 
 
 def test_a_changed_figure_in_the_manifest_is_named(written, tmp_path, capsys):

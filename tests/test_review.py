@@ -22,10 +22,10 @@ from sklearn.ensemble import RandomForestClassifier
 from grovewise.cli import main
 from grovewise.report.content import export_report
 from grovewise.reproduce import reproduce
-from grovewise.review import Review, ReviewInputs, Reviewer, ReviewSettings
+from grovewise.review import STEPS, Review, ReviewInputs, Reviewer, ReviewSettings
 from grovewise.sample_data import sample_paths
 
-FAST = dict(depth=2, time_limit=6.0, permutation_repeats=2, seed=3)
+FAST = dict(depth=2, time_limit=6.0, permutation_repeats=2, seed=3, stability_resamples=2)
 POPPLER = shutil.which("pdftotext") and shutil.which("pdfinfo") and shutil.which("pdftoppm")
 needs_poppler = pytest.mark.skipif(not POPPLER, reason="poppler-utils (pdftotext) not installed; "
                                    ".ci/run installs it")
@@ -51,7 +51,8 @@ def sample_review(tmp_path_factory):
 
 def test_every_step_has_results(sample_review):
     review, files, _ = sample_review
-    assert set(review.results) == {"intake", "anatomy", "proximity", "surrogate", "cases"}
+    assert set(review.results) == set(STEPS)
+    assert review.second_model is None and review.stability.resamples == 2
     assert review.intake.exactness.passed
     assert review.intake.exactness.max_abs_proba_diff <= 1e-9
     fid = review.surrogate.fidelity
@@ -266,7 +267,8 @@ def test_hostile_feature_names_are_escaped(tmp_path):
     sio.dump(model, tmp_path / "m.skops")
     frame.to_csv(tmp_path / "d.csv", index=False)
     review = Review(ReviewInputs(tmp_path / "m.skops", tmp_path / "d.csv", target="outcome"),
-                    ReviewSettings(depth=1, time_limit=3.0, permutation_repeats=1),
+                    ReviewSettings(depth=1, time_limit=3.0, permutation_repeats=1,
+                                   stability_resamples=0),
                     Reviewer(name="<b>Eve</b> & co", notes='"quoted" <i>'))
     review.run()
     files = export_report(review, tmp_path / "r", formats=("html",))
@@ -284,13 +286,14 @@ def test_review_command_line(tmp_path, capsys):
     paths = sample_paths()
     code = main(["review", str(paths["forest"]), str(paths["data"]), "--target", "complication",
                  "--out", str(tmp_path / "o"), "--time-limit", "4", "--depth", "1",
-                 "--reviewer", "A. Lind", "--group", "smoker"])
+                 "--reviewer", "A. Lind", "--group", "smoker", "--stability-resamples", "2"])
     assert code == 0
     out = capsys.readouterr().out
     assert "surrogate (winning stage" in out and "report.pdf" in out
     assert "(95% interval" in out and "certificate   No tree of depth 1" in out
     assert "by group      By smoker, the surrogate's fidelity" in out
     assert "model         ROC AUC" in out
+    assert "stability     The surrogate's root" in out and "of 2 bootstrap re-fits" in out
     assert (tmp_path / "o" / "manifest.json").is_file()
     reopened = Review.open(tmp_path / "o" / "review")
     assert reopened.reviewer.name == "A. Lind"
@@ -306,6 +309,7 @@ def test_review_command_line(tmp_path, capsys):
     assert "depth" in capsys.readouterr().err
 
 
+@pytest.mark.slow  # 80-150 s; tests/test_reproduce.py checks the same on the sample in CI
 def test_node_limited_review_reproduces_exactly(tmp_path):
     """With a node limit (and time to spare) every digest, the surrogate's included, is equal."""
     from sklearn.datasets import load_breast_cancer  # Wolberg et al., UCI, bundled
@@ -315,7 +319,8 @@ def test_node_limited_review_reproduces_exactly(tmp_path):
     sio.dump(model, tmp_path / "bc.skops")
     data.frame.to_csv(tmp_path / "bc.csv", index=False)
     review = Review(ReviewInputs(tmp_path / "bc.skops", tmp_path / "bc.csv", target="target"),
-                    ReviewSettings(depth=2, time_limit=120, node_limit=10, permutation_repeats=1))
+                    ReviewSettings(depth=2, time_limit=120, node_limit=10, permutation_repeats=1,
+                                   stability_resamples=2))
     review.run()
     files = export_report(review, tmp_path / "r", formats=("html",))
     manifest = json.loads(files["manifest"].read_text())

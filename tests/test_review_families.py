@@ -25,7 +25,8 @@ from grovewise.reproduce import reproduce
 from grovewise.review import ReviewInputs, ReviewSettings
 
 SETTINGS = dict(depth=2, time_limit=60, node_limit=20, permutation_repeats=1,
-                permutation_rows=300, exactness_rows=1000, proximity_rows=200, seed=1)
+                permutation_rows=300, exactness_rows=1000, proximity_rows=200, seed=1,
+                stability_resamples=0)
 
 
 @pytest.fixture(scope="module")

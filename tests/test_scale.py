@@ -15,7 +15,7 @@ from grovewise.errors import CancelledError
 from grovewise.progress import StepMeter, time_left_text
 from grovewise.report.content import sample_rows
 from grovewise.report.manifest import build_manifest
-from grovewise.review import Review, ReviewInputs, ReviewSettings
+from grovewise.review import STEPS, Review, ReviewInputs, ReviewSettings
 from grovewise.sample_data import sample_paths
 from grovewise.sampling import stratified_rows
 
@@ -26,7 +26,7 @@ def _inputs() -> ReviewInputs:
 
 
 SMALL = dict(permutation_rows=600, exactness_rows=1000, proximity_rows=400,
-             permutation_repeats=2, depth=2, seed=3)
+             permutation_repeats=2, depth=2, seed=3, stability_resamples=2)
 
 
 def test_stratified_sample_keeps_class_shares_and_is_seeded():
@@ -82,7 +82,7 @@ def test_review_records_every_sample_and_reports_progress_in_every_step():
 
     review = Review(_inputs(), ReviewSettings(time_limit=6, **SMALL))
     review.run(progress=progress)
-    assert set(seen) == {"intake", "anatomy", "proximity", "surrogate", "cases"}
+    assert set(seen) == set(STEPS)
     for step, calls in seen.items():
         assert calls[0][1] == 0.0 and calls[-1][1] == 1.0, step
     # permutation passes were counted: 1 + 16 features x 2 repeats on 600 rows

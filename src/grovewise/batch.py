@@ -52,11 +52,13 @@ class BatchFileError(GrovewiseError):
 
 # ---------------------------------------------------------------------- one review's folder
 def write_review_folder(inputs, settings, out, reviewer=None, *, progress=None, cancel=None,
-                        jobs: int | None = None):
+                        jobs: int | None = None, checked=None):
     """Run every step of a review and write its folder: the saved review, the report (HTML,
     PDF) and the manifest. ``grovewise review``, ``demo`` and each batch line write this.
 
     ``jobs`` is the cores the steps may use (None: all); it never changes a result.
+    ``checked``: what :func:`grovewise.preflight.check_review` read for these inputs (the
+    data is then not read again).
 
     Returns
     -------
@@ -64,20 +66,51 @@ def write_review_folder(inputs, settings, out, reviewer=None, *, progress=None, 
         The review, and the report files written by kind (``html``, ``pdf``, ``manifest``).
     """
     from .progress import quiet
-    from .report.content import export_report
     from .review import Review
 
     report = progress or quiet
     review = Review(inputs, settings, reviewer)
     review.jobs = jobs
+    if checked is not None:
+        review.use_checked(checked)
     review.run(progress=report, cancel=cancel)
-    folder = Path(out)
-    report("report", 0.0, "saving the review")
-    review.save(folder / SAVED_REVIEW)
-    files = export_report(review, folder, progress=report,
-                          saved_review=folder / SAVED_REVIEW)
-    report("report", 1.0, "report: done")
+    files = save_review_folder(review, out, progress=report)
     return review, files
+
+
+def save_review_folder(review, out, *, progress=None) -> dict[str, Path]:
+    """Write a review's folder whole: the saved review, the report (HTML, PDF) and the
+    manifest, into a hidden folder beside ``out`` that then takes its place
+    (:func:`grovewise.report.atomic.atomic_folder`). A save over an earlier review that is
+    killed at any point leaves the earlier review or the new one, whole, never a mix; other
+    files kept in the earlier folder stay, its signature and error note do not.
+
+    Returns the report files written, by kind (``html``, ``pdf``, ``manifest``).
+    """
+    from .progress import quiet
+    from .report.atomic import atomic_folder
+    from .report.content import export_report
+    from .signing import SIGNATURE_FILE
+
+    report = progress or quiet
+    out = Path(out)
+    report("report", 0.0, "saving the review")
+    with atomic_folder(out, drop=(SIGNATURE_FILE, ERROR_FILE)) as staging:
+        review.save(staging / SAVED_REVIEW)
+        written = export_report(review, staging, progress=report,
+                                saved_review=staging / SAVED_REVIEW)
+    report("report", 1.0, "report: done")
+    return {kind: out / path.name for kind, path in written.items()}
+
+
+def is_review_folder(folder) -> bool:
+    """Whether ``folder`` holds a review written by :func:`save_review_folder` (or a batch
+    line's error note in its place)."""
+    from .review import REVIEW_FILE
+
+    folder = Path(folder)
+    return ((folder / "manifest.json").is_file() or (folder / ERROR_FILE).is_file()
+            or (folder / SAVED_REVIEW / REVIEW_FILE).is_file())
 
 
 # ---------------------------------------------------------------------- values of a line
@@ -327,6 +360,25 @@ def _check_file(folder: Path, key: str, path: Path | None, required: bool) -> No
                            f"path starts at the batch file's folder, {folder.absolute()}).")
 
 
+def check_lines(lines: list[BatchLine], out: Path) -> None:
+    """Check each line's review as ``grovewise review`` checks its own, before any runs
+    (:func:`grovewise.preflight.check_review`): the model read, the data against it (columns,
+    values, target, group columns), the settings and the line's folder ``OUT/<name>``. A
+    problem becomes that line's own; the other lines still run."""
+    from .preflight import check_review
+
+    for line in lines:
+        if line.problem is not None:
+            continue
+        try:
+            check_review(line.inputs(), line.review_settings(), Path(out) / line.name,
+                         option="the review's folder")
+        except GrovewiseError as exc:
+            line.problem = f"{line.where}: {exc}"
+        except Exception as exc:  # one line's surprise must not stop the batch
+            line.problem = _unexpected(line, exc)
+
+
 def _name(lines: list[BatchLine]) -> None:
     """Give every line a folder name: its own if valid and unused, else one made from the
     model file's name (``-2``, ``-3`` ... added to keep it unique)."""
@@ -538,14 +590,17 @@ def run_batch(batch_file, out, *, jobs: int | None = None, scheduler: str | None
     SettingError
         ``--jobs`` or ``--scheduler`` is wrong.
     """
+    from .preflight import check_out_folder
+
     start = time.perf_counter()
     jobs = resolve_jobs(jobs)
+    out = check_out_folder(out)
     lines = read_batch(batch_file)
+    check_lines(lines, out)
     ready = [line for line in lines if line.problem is None]
     own = executor is None and bool(ready)
     if own:
         executor = Executor(min(jobs, len(ready)), scheduler, processes=True)
-    out = Path(out)
     try:
         if ready:
             executor.start()  # a wrong --scheduler stops the batch before anything is written

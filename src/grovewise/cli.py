@@ -40,6 +40,7 @@ def cmd_inspect(args) -> int:
     from .summary import summarize
 
     _warn_if_trusted(args)
+    _check_files(args.model, args.data)
     native = load_native(args.model, trusted=args.trust)
     forest = from_estimator(native)
     data = load_data(args.data, forest=forest, target=args.target) if args.data else None
@@ -54,15 +55,20 @@ def cmd_inspect(args) -> int:
 
 def cmd_anatomy(args) -> int:
     """Usage maps, importances, threshold profiles: figures and tables."""
-    from .loaders import load_data, load_model
+    from .preflight import check_data, check_flags, check_model, check_out_folder
     from .report.anatomy_files import export_anatomy
+    from .report.figure_files import check_dpi, check_formats
 
     _warn_if_trusted(args)
-    forest = load_model(args.model, trusted=args.trust)
-    data = load_data(args.data, forest=forest, target=args.target) if args.data else None
-    flags = _parse_flags(args.flag)
-    files = export_anatomy(forest, data, out_dir=args.out, flags=flags, dpi=args.dpi,
-                           formats=tuple(args.formats.split(",")), random_state=args.seed)
+    # every input checked before the first figure is drawn
+    dpi, formats = check_dpi(args.dpi), check_formats(tuple(args.formats.split(",")))
+    check_out_folder(args.out)
+    _check_files(args.model, args.data)
+    forest = check_model(args.model, args.trust)
+    flags = check_flags(forest, _parse_flags(args.flag))
+    data = check_data(args.data, forest, target=args.target) if args.data else None
+    files = export_anatomy(forest, data, out_dir=args.out, flags=flags, dpi=dpi,
+                           formats=formats, random_state=args.seed)
     print(f"wrote {len(files)} files to {args.out}")
     for f in files:
         print(f"  {f}")
@@ -73,10 +79,11 @@ def cmd_effects(args) -> int:
     """The ensemble's own effects on a seeded sample: contributions, importance, interaction
     pairs, effect curves; tables (CSV, JSON) and figures (PNG, SVG)."""
     _warn_if_trusted(args)
-    out = _out_folder(args.out)
     features = [f.strip() for f in (args.features or "").split(",") if f.strip()] or None
+    out = Path(args.out)
     with TerminalProgress() as progress:
-        written = _export_effects(args, out, features, progress)
+        checked = _check_effects(args, features, progress)
+        written = _export_effects(args, out, checked, progress)
     print(f"effects of {args.model} on {args.data}")
     print(f"  sample        {written['sample']}")
     print(f"  relies on     {written['ranking']} (by mean |contribution|)")
@@ -118,35 +125,52 @@ def _feature_indices(forest, features) -> list[int] | None:
     return list(dict.fromkeys(names.index(f) for f in features))
 
 
-def _export_effects(args, out: Path, features, progress) -> dict:
+def _check_effects(args, features, progress):
+    """Every input of ``grovewise effects``, checked before any work: the row counts, the
+    resolution, the cores, the folder, the model, ``--features`` and the data."""
+    from types import SimpleNamespace
+
+    from .preflight import STEP, check_data, check_model, check_out_folder
+    from .report.figure_files import check_dpi
+
+    _check_range("--rows", args.rows, EFFECTS_ROWS)
+    _check_range("--interaction-rows", args.interaction_rows, INTERACTION_ROWS)
+    dpi, jobs = check_dpi(args.dpi), _jobs(args)
+    check_out_folder(args.out)
+    _check_files(args.model, args.data)
+    progress(STEP, 0.0, f"reading the model {Path(args.model).name}")
+    forest = check_model(args.model, args.trust)
+    chosen = _feature_indices(forest, features)
+    progress(STEP, 0.4, f"reading the data {Path(args.data).name} against the model")
+    data = check_data(args.data, forest, target=args.target)
+    progress(STEP, 1.0, "every input checked")
+    return SimpleNamespace(forest=forest, data=data, features=features, chosen=chosen,
+                           dpi=dpi, jobs=jobs)
+
+
+def _export_effects(args, out: Path, checked, progress) -> dict:
     """Compute the effects (grovewise.effects_summary.ensemble_effects: the review's own
     computation, without a surrogate) and write every table and figure into ``out``."""
     import numpy as np
 
     from .analysis.thresholds import threshold_profiles
     from .effects_summary import ensemble_effects
-    from .loaders import load_data, load_model
     from .progress import StepMeter
     from .report.anatomy_files import write_csv, write_json
-    from .report.figure_files import check_dpi, save_figure
+    from .report.figure_files import save_figure
     from .report.figures_effects import effect_curves_figure, interaction_figure
     from .review import proba_in_blocks
 
-    _check_range("--rows", args.rows, EFFECTS_ROWS)
-    _check_range("--interaction-rows", args.interaction_rows, INTERACTION_ROWS)
-    dpi = check_dpi(args.dpi)
-    progress("effects", 0.0, f"reading the model {Path(args.model).name}")
-    forest = load_model(args.model, trusted=args.trust)
-    chosen = _feature_indices(forest, features)
-    progress("effects", 0.02, f"reading the data {Path(args.data).name}")
-    data = load_data(args.data, forest=forest, target=args.target)
+    forest, data, chosen, dpi = checked.forest, checked.data, checked.chosen, checked.dpi
+    features = checked.features
     X = data.X
+    progress("effects", 0.0, f"predicting {X.shape[0]:,} rows of {Path(args.data).name}")
     meter = StepMeter(progress, "effects", X.shape[0], "rows predicted", start=0.03, span=0.05)
     predicted = np.argmax(proba_in_blocks(forest, X, meter), axis=1)
     fx, detail = ensemble_effects(
         forest, X, predicted, threshold_profiles(forest), rows=args.rows,
         interaction_rows=args.interaction_rows, seed=args.seed, features=chosen,
-        jobs=_jobs(args), progress=lambda f, msg: progress("effects", 0.08 + 0.8 * f, msg))
+        jobs=checked.jobs, progress=lambda f, msg: progress("effects", 0.08 + 0.8 * f, msg))
     names = list(forest.feature_names)
     notes = [f"{names[j]} has no values in the sample: no curve for it." for j in (chosen or [])
              if j not in {c.index for c in fx.curves}]
@@ -207,14 +231,16 @@ def _export_effects(args, out: Path, features, progress) -> dict:
             "ranking": ", ".join(ranking[:3]), "notes": notes}
 
 
-def _out_folder(out) -> Path:
-    """``--out``: a folder (created when missing), never an existing file."""
-    from .errors import SettingError
+def _check_files(model, *data, must_exist: bool = False) -> None:
+    """Every input file can be read, before any is opened (grovewise.preflight); the readers
+    themselves name a missing file and say what it should be, unless ``must_exist``."""
+    from .errors import DataError, ModelFileError
+    from .preflight import check_readable
 
-    out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise SettingError(f"--out {out} is a file; give a folder (it is created if missing).")
-    return out
+    check_readable(model, "model file", ModelFileError, must_exist)
+    for path in data:
+        if path:
+            check_readable(path, "data file", DataError, must_exist)
 
 
 class TerminalProgress:
@@ -301,7 +327,9 @@ def _settings_from(args):
                           group_columns=list(getattr(args, "group", None) or []),
                           permutation_rows=args.permutation_rows,
                           exactness_rows=args.exactness_rows,
-                          proximity_rows=args.proximity_rows).validate()
+                          proximity_rows=args.proximity_rows,
+                          stability_resamples=args.stability_resamples,
+                          stability_time_limit=args.stability_time_limit).validate()
 
 
 def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = None):
@@ -309,14 +337,16 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     import time
 
     from .batch import SAVED_REVIEW, write_review_folder
+    from .preflight import check_review
     from .report.content import certificate_line, reliance_text, review_reliance
     from .weak_spots import weak_spots
 
     start = time.perf_counter()
     folder = Path(out)
     with TerminalProgress() as progress:
+        checked = check_review(inputs, settings, folder, progress=progress)  # before work
         review, files = write_review_folder(inputs, settings, folder, reviewer,
-                                            progress=progress, jobs=jobs)
+                                            progress=progress, jobs=jobs, checked=checked)
     sur = review.surrogate
     print(f"review of {inputs.model} on {inputs.data}: done in {time.perf_counter() - start:.1f} s")
     print(f"  exactness     {review.intake.exactness.text()}")
@@ -327,6 +357,11 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     perf = getattr(review.intake, "performance", None)
     if perf is not None:
         print(f"  model         {perf.text().splitlines()[0]}")
+    if review.stability is not None:
+        for name in ("surrogate", "greedy"):
+            print(f"  stability     {review.stability.sentence(name)}")
+    if review.second_model is not None:
+        print(f"  second model  {review.second_model.sentence()}")
     print(f"  relies on     {reliance_text(review_reliance(review))}")
     for spot in weak_spots(review):
         _say(f"  weak spot: {spot.text}", sys.stdout)
@@ -360,7 +395,7 @@ def cmd_review(args) -> int:
 
     _warn_if_trusted(args)
     inputs = ReviewInputs(args.model, args.data, target=args.target, holdout=args.holdout,
-                          trusted=args.trust)
+                          trusted=args.trust, second_model=args.second_model)
     reviewer = _reviewer_from(args)
     _run_review(inputs, _settings_from(args), args.out, reviewer, jobs=_jobs(args))
     return 0
@@ -383,11 +418,13 @@ def _reviewer_from(args):
 
 def cmd_decide(args) -> int:
     """Record or change the decision on a written review folder."""
-    from .decision import record_decision
-
+    from .decision import decision_name, record_decision
     from .errors import SettingError
+    from .preflight import check_out_folder
     from .signing import is_signed
 
+    decision_name(args.decision)  # checked before the review is opened or drawn again
+    check_out_folder(args.folder, "FOLDER")
     signed = is_signed(args.folder)
     if signed and not args.sign:
         raise SettingError(f"{args.folder} is signed: recording a decision rewrites the files "
@@ -405,6 +442,9 @@ def cmd_decide(args) -> int:
 
 def cmd_sign(args) -> int:
     """Sign a written review with the reviewer's own key (made on first use)."""
+    from .preflight import check_out_folder
+
+    check_out_folder(args.folder, "FOLDER")  # the signature is written into it
     _sign(args.folder)
     return 0
 
@@ -439,7 +479,9 @@ def cmd_demo(args) -> int:
     from .sample_data import sample_paths
 
     paths = sample_paths()
-    inputs = ReviewInputs(paths["forest"], paths["data"], target=paths["target"])
+    # the sample's XGBoost model, trained on the same rows, is reviewed beside the forest
+    inputs = ReviewInputs(paths["forest"], paths["data"], target=paths["target"],
+                          second_model=paths["xgboost"])
     review, files = _run_review(inputs, _settings_from(args), args.out, jobs=_jobs(args))
     if args.no_window:
         return 0
@@ -493,18 +535,21 @@ def _open_window_process(review_dir: Path) -> int:
 def cmd_surrogate(args) -> int:
     """Fit the surrogate and export it: rules as text and JSON, the tree as PNG and SVG, the
     program as MPS."""
+    from .preflight import check_out_folder, check_review
     from .report.atomic import write_atomic
-    from .report.figure_files import save_figure
+    from .report.figure_files import check_dpi, save_figure
     from .report.figures_surrogate import surrogate_tree_figure
     from .review import Review, ReviewInputs
 
     _warn_if_trusted(args)
-    out = Path(args.out)
-    out.mkdir(parents=True, exist_ok=True)
-    review = Review(ReviewInputs(args.model, args.data, target=args.target, trusted=args.trust),
-                    _settings_from(args))
-    review.jobs = _jobs(args)
+    inputs = ReviewInputs(args.model, args.data, target=args.target, trusted=args.trust)
+    settings, jobs, dpi = _settings_from(args), _jobs(args), check_dpi(args.dpi)
+    out = check_out_folder(args.out)
+    review = Review(inputs, settings)
+    review.jobs = jobs
     with TerminalProgress() as progress:
+        review.use_checked(check_review(inputs, settings, progress=progress))  # before the fit
+        out.mkdir(parents=True, exist_ok=True)
         review.run_step("intake", progress)
         review.run_step("surrogate", progress)
     if review.program_mps:
@@ -514,7 +559,7 @@ def cmd_surrogate(args) -> int:
     write_atomic(out / "rules.txt", est.export_text())
     write_atomic(out / "surrogate.json", json.dumps(result.to_dict(), indent=1))
     save_figure(surrogate_tree_figure(est, title=f"Surrogate of {Path(args.model).name}"),
-                out / "tree", formats=("png", "svg"), dpi=args.dpi)
+                out / "tree", formats=("png", "svg"), dpi=dpi)
     print(est.rules_)
     _print_fidelities(result, "")
     cert = result.certificate
@@ -566,6 +611,8 @@ def cmd_window(args) -> int:
             from .errors import SettingError
 
             raise SettingError("give both MODEL and DATA, or --sample, or neither.")
+    if args.model and args.data and not args.sample:
+        _check_files(args.model, args.data, must_exist=True)  # before the window opens
     return run_window(sample=args.sample, model=args.model, data=args.data,
                       target=args.target, capture_dir=args.capture)
 
@@ -593,6 +640,13 @@ def _add_solve_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--group", action="append", metavar="COL",
                    help="a column of the data (a model input or not) whose groups get their "
                         "own fidelity, beside every protected feature (repeatable)")
+    p.add_argument("--stability-resamples", type=int, default=d.stability_resamples,
+                   metavar="B", help="bootstrap re-fits of the surrogate and the greedy tree "
+                   f"that measure how stable the rules are (default {d.stability_resamples}; "
+                   "0 leaves them out)")
+    p.add_argument("--stability-time-limit", type=float, default=d.stability_time_limit,
+                   metavar="S", help="seconds for each re-fit (default: the time limit / "
+                   "(2 x B), at least 1)")
     p.add_argument("--jobs", type=int, default=None, metavar="N",
                    help="CPU cores the steps use (default: all); results do not depend on it")
     for name, what in (("permutation_rows", "permutation importance"),
@@ -701,6 +755,8 @@ def build_parser() -> argparse.ArgumentParser:
     _add_model_args(p, data="required")
     p.add_argument("--target", help="name of the target column in DATA, if it has one")
     p.add_argument("--holdout", metavar="FILE", help="a separate holdout data file")
+    p.add_argument("--second-model", metavar="FILE", help="a second model over the same "
+                   "features (a retrained version, a challenger), reviewed beside the first")
     p.add_argument("--out", required=True, metavar="DIR", help="folder for the report")
     p.add_argument("--reviewer", help="the reviewer's name, for the report")
     p.add_argument("--role", help="the reviewer's role, for the report")
@@ -747,7 +803,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_batch)
 
     p = sub.add_parser("reproduce", help="re-run a review and say whether it matches")
-    p.add_argument("manifest", metavar="MANIFEST", help="the manifest.json of a review")
+    p.add_argument("manifest", metavar="MANIFEST", help="the manifest.json of a review (or "
+                   "the review's folder)")
     p.add_argument("--trust", action="store_true",
                    help="allow a review whose model was opened as trusted")
     p.set_defaults(func=cmd_reproduce)
@@ -777,7 +834,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except GrovewiseError as exc:
-        _say(f"grovewise {args.command}: {exc}")
+        # one line, not wrapped: a list of names (features, columns) stays on it whole
+        print(f"grovewise {args.command}: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         _say(f"grovewise {args.command}: interrupted; results written so far are kept.")

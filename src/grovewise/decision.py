@@ -30,8 +30,8 @@ def decision_name(text: str) -> str:
 def record_decision(folder, decision: str, *, conditions: str = "", notes: str | None = None,
                     name: str | None = None, role: str | None = None) -> dict[str, Path]:
     """Write ``decision`` into the review in ``folder``; returns the report files written."""
+    from .batch import save_review_folder
     from .reproduce import read_manifest
-    from .report.content import export_report
 
     folder = Path(folder)
     manifest_path = folder / "manifest.json"
@@ -53,5 +53,4 @@ def record_decision(folder, decision: str, *, conditions: str = "", notes: str |
         notes=rv.notes if notes is None else notes, name=rv.name if name is None else name,
         role=rv.role if role is None else role,
         signed_at=_dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")).validate()
-    review.save(folder / SAVED_REVIEW)
-    return export_report(review, folder, saved_review=folder / SAVED_REVIEW)
+    return save_review_folder(review, folder)  # whole: a killed save leaves the old one

@@ -160,7 +160,7 @@ class Executor:
     # ------------------------------------------------------------------ running
     def map(self, fn: Callable, items: Iterable, *, progress: Progress | None = None,
             cancel: threading.Event | None = None, retries: int = 0,
-            on_item: ItemCallback | None = None) -> list:
+            on_item: ItemCallback | None = None, shared: Any = None) -> list:
         """``[fn(item) for item in items]``, run in parallel, in the order of ``items``.
 
         Parameters
@@ -177,6 +177,10 @@ class Executor:
             Times an item whose function raised is run again before it counts as failed.
         on_item : callable, optional
             ``on_item(index, ok, value)`` as each item settles, in the calling thread.
+        shared : object, optional
+            Data every item needs (large arrays, a model): ``fn(item, shared)`` is called
+            instead of ``fn(item)``, and on a cluster it is sent to the workers once, not
+            with each item.
 
         Raises
         ------
@@ -184,7 +188,8 @@ class Executor:
             The first exception of ``fn`` in item order, once the items before it are done
             (items after it are cancelled).
         """
-        outcomes = self._run(fn, items, progress, cancel, retries, on_item, stop_on_error=True)
+        outcomes = self._run(fn, items, progress, cancel, retries, on_item, stop_on_error=True,
+                             shared=shared)
         return [value for _, value in outcomes]
 
     def map_settled(self, fn: Callable, items: Iterable, *, progress: Progress | None = None,
@@ -194,32 +199,36 @@ class Executor:
         ``(False, exception)``, in the order of ``items``; ``fn``'s errors are not raised."""
         return self._run(fn, items, progress, cancel, retries, on_item, stop_on_error=False)
 
-    def _run(self, fn, items, progress, cancel, retries, on_item, stop_on_error):
+    def _run(self, fn, items, progress, cancel, retries, on_item, stop_on_error,
+             shared=None):
         items = list(items)
         if isinstance(retries, bool) or not isinstance(retries, numbers.Integral) or retries < 0:
             raise SettingError(f"retries {retries!r}: give a whole number, 0 or more.")
         tally = _Tally(len(items), progress, on_item, stop_on_error)
         if not items:
             return []
-        settle = _Settling(fn, int(retries))
+        settle = _Settling(fn, int(retries), shared is not None)
         if self.inline:
-            return self._run_inline(settle, items, cancel, tally)
-        return self._run_dask(settle, items, cancel, tally)
+            return self._run_inline(settle, items, cancel, tally, shared)
+        return self._run_dask(settle, items, cancel, tally, shared)
 
-    def _run_inline(self, settle, items, cancel, tally) -> list:
+    def _run_inline(self, settle, items, cancel, tally, shared=None) -> list:
         for i, item in enumerate(items):
             _check_cancel(cancel, tally)
-            tally.settle(i, *settle(item))
+            tally.settle(i, *settle(item, shared))
         return tally.outcomes
 
-    def _run_dask(self, settle, items, cancel, tally) -> list:
+    def _run_dask(self, settle, items, cancel, tally, shared=None) -> list:
         client = self.client
         arrived: queue.SimpleQueue = queue.SimpleQueue()
         run = uuid.uuid4().hex
         keys = [f"{settle.name}-{run}-{i}" for i in range(len(items))]
         index = {key: i for i, key in enumerate(keys)}
+        extra = {}
+        if shared is not None:  # once to every worker, not once per task
+            [extra["shared"]] = client.scatter([shared], broadcast=True, hash=False)
         # pure=False with our own keys: equal items are still separate tasks
-        pending = {f.key: f for f in client.map(settle, items, key=keys, pure=False)}
+        pending = {f.key: f for f in client.map(settle, items, key=keys, pure=False, **extra)}
         for future in pending.values():
             future.add_done_callback(arrived.put)  # called from dask's thread
         try:
@@ -302,14 +311,14 @@ class _Settling:
     after ``retries`` more tries. An error thus comes back as a value: the same inline and on
     a cluster, and dask's workers log no traceback for an error the caller reports itself."""
 
-    def __init__(self, fn: Callable, retries: int) -> None:
-        self.fn, self.retries = fn, retries
+    def __init__(self, fn: Callable, retries: int, with_shared: bool = False) -> None:
+        self.fn, self.retries, self.with_shared = fn, retries, with_shared
         self.name = getattr(fn, "__name__", type(fn).__name__)
 
-    def __call__(self, item) -> tuple[bool, object]:
+    def __call__(self, item, shared=None) -> tuple[bool, object]:
         for _ in range(self.retries + 1):
             try:
-                return True, self.fn(item)
+                return True, (self.fn(item, shared) if self.with_shared else self.fn(item))
             except Exception as exc:
                 failure = exc
         return False, failure

@@ -25,12 +25,16 @@ import numpy as np
 from .errors import GrovewiseError
 from .hashing import sha256_of
 from .plain import to_plain
-from .report.manifest import FORMAT, _strip_undigested, build_manifest, digest
+from .report.manifest import (FORMAT, _strip_undigested, build_manifest, digest,
+                              stated_second_model, stated_stability)
 from .review import Review, ReviewInputs, ReviewSettings
 from .signing import check_signature, is_signed
 from .storage import StorageError, read_document
 
+MANIFEST_FILE = "manifest.json"
 EXACT_STEPS = ("intake", "anatomy", "proximity")
+# steps made from the surrogate's tree: exact when the solve was bounded by a node limit
+FROM_TREE = ("surrogate", "cases", "second_model", "stability")
 FIDELITY_PARTS = ("train", "holdout", "full")
 
 
@@ -68,6 +72,56 @@ def read_manifest(path) -> dict:
                          "give the manifest.json that a review wrote.")
 
 
+def whole_folder(manifest_path) -> tuple[Path, list[tuple[str, str]]]:
+    """The manifest of a review folder that was written whole, and notes for the verdict.
+
+    ``manifest_path`` may also name the folder. A folder whose write was killed between its
+    last two renames is put right first; a folder holding a saved review or a report but no
+    manifest (which is written last) raises a StorageError saying it is half-written.
+    """
+    from .batch import SAVED_REVIEW
+    from .report.atomic import leftover_folders, restore_folder
+
+    path = Path(manifest_path)
+    if path.is_dir() or (not path.exists() and not path.suffix):
+        path = path / MANIFEST_FILE
+    folder = path.parent
+    notes = []
+    restored = restore_folder(folder)
+    if restored:
+        notes.append(("interrupted write", restored))
+    left = leftover_folders(folder)
+    if left:
+        notes.append(("interrupted write", f"{', '.join(p.name for p in left)} beside "
+                      f"{folder.name} are what an interrupted write left (the next write "
+                      f"removes them); {folder.name} itself holds one review whole"))
+    if not path.exists() and folder.is_dir():
+        parts = [n for n in (SAVED_REVIEW, "report.html", "report.pdf")
+                 if (folder / n).exists()]
+        if parts:
+            raise StorageError(f"{folder} is half-written: it holds {', '.join(parts)} but no "
+                               f"{MANIFEST_FILE}, which is written last, so the review's save "
+                               "stopped before it finished. Run the review again with this "
+                               "folder as --out to write it whole.")
+    return path, notes
+
+
+def _check_listed(base: Path, manifest: dict) -> None:
+    """Every file of the review's folder that the manifest lists is there, or the folder is
+    half-written (a changed file is a check of its own, named in the verdict)."""
+    saved = manifest.get("saved_review") or {}
+    listed = [entry["path"] for entry in (manifest.get("report_files") or {}).values()]
+    listed += [f"{saved['path']}/{name}" for name in (saved.get("files") or {})]
+    missing = [name for name in listed if not (base / name).is_file()]
+    if missing:
+        shown = ", ".join(missing[:4]) + (f" and {len(missing) - 4} more" if len(missing) > 4
+                                          else "")
+        raise StorageError(f"{base} is half-written or incomplete: its {MANIFEST_FILE} lists "
+                           f"{shown}, which {'is' if len(missing) == 1 else 'are'} not there "
+                           "(a save stopped before it finished, or files were removed). Run "
+                           "the review again with this folder as --out to write it whole.")
+
+
 def _resolve(base: Path, entry: dict | None) -> Path | None:
     if not entry:
         return None
@@ -90,15 +144,20 @@ def _check_file(verdict: Verdict, label: str, path: Path, recorded: str) -> bool
 def reproduce(manifest_path, *, trusted: bool = False, progress=None,
               refit: bool = True) -> Verdict:
     """Check and re-run the review that ``manifest_path`` describes (see module docstring)."""
-    manifest_path = Path(manifest_path)
+    manifest_path, notes = whole_folder(manifest_path)
     manifest = read_manifest(manifest_path)
     base = manifest_path.parent
+    _check_listed(base, manifest)
     verdict = Verdict()
+    for name, detail in notes:
+        verdict.note(name, detail)
     inputs = manifest["inputs"]
-    files = {k: _resolve(base, inputs.get(k)) for k in ("model", "data", "holdout")}
+    files = {k: _resolve(base, inputs.get(k)) for k in ("model", "data", "holdout",
+                                                        "second_model")}
     for kind, path in files.items():
         if path is not None:
-            _check_file(verdict, f"{kind} file", path, inputs[kind]["sha256"])
+            _check_file(verdict, f"{kind.replace('_', ' ')} file", path,
+                        inputs[kind]["sha256"])
     for kind, entry in sorted((manifest.get("report_files") or {}).items()):
         _check_file(verdict, f"report file {entry['path']}", base / entry["path"],
                     entry["sha256"])
@@ -123,11 +182,12 @@ def reproduce(manifest_path, *, trusted: bool = False, progress=None,
         return verdict
     settings = ReviewSettings(**manifest["settings"])
     review = Review(ReviewInputs(files["model"], files["data"], target=inputs.get("target"),
-                                 holdout=files["holdout"], trusted=bool(inputs.get("trusted"))),
+                                 holdout=files["holdout"], trusted=bool(inputs.get("trusted")),
+                                 second_model=files["second_model"]),
                     settings)
     review.run(steps=tuple(manifest["digests"]), progress=progress)
     again = build_manifest(review)
-    exact = set(EXACT_STEPS) | ({"surrogate", "cases"} if manifest.get("deterministic") else set())
+    exact = set(EXACT_STEPS) | (set(FROM_TREE) if manifest.get("deterministic") else set())
     for step, recorded in manifest["digests"].items():
         got = again["digests"].get(step)
         if step in exact:
@@ -170,9 +230,15 @@ def _check_stated(verdict: Verdict, manifest: dict, saved: Review) -> None:
     wrong += [f"certificate {k} {cert_stated.get(k)!r} stated, {cert_saved.get(k)!r} saved"
               for k in sorted(set(cert_stated) | set(cert_saved))
               if cert_stated.get(k) != cert_saved.get(k)]
+    for key, stated_now in (("stability", stated_stability(saved.stability)),
+                            ("second_model", stated_second_model(saved.second_model))):
+        was = manifest.get(key)
+        if was != (None if stated_now is None else to_plain(stated_now)):
+            wrong.append(f"{key.replace('_', ' ')} figures stated differ from the saved "
+                         "results")
     for step, recorded in (manifest.get("digests") or {}).items():
-        result = saved.results.get(step)
-        if result is None or digest(result) != recorded:
+        # a step may conclude None (no second model given, stability left out)
+        if step not in saved.results or digest(saved.results[step]) != recorded:
             wrong.append(f"{step} results differ from the digest stated")
     verdict.add("manifest.json figures against the saved review", not wrong,
                 "every stated figure equals the saved result" if not wrong else
@@ -204,3 +270,59 @@ def _rescore(verdict: Verdict, saved: Review, files: dict) -> None:
                 wrong.append(f"{name} {part} fidelity {stated!r} saved, {again!r} re-scored")
     verdict.add("saved trees re-scored on the data", not wrong,
                 "every fidelity equals its re-scoring" if not wrong else "; ".join(wrong))
+    _rescore_stability(verdict, saved, ensemble, filled)
+    _rescore_second_model(verdict, saved, X, ensemble, files)
+
+
+def _rescore_stability(verdict: Verdict, saved: Review, ensemble: np.ndarray,
+                       filled: np.ndarray) -> None:
+    """The stability figures again from the saved re-fits' classes, by plain counting."""
+    stab = saved.stability
+    if stab is None:
+        return
+    truth = ensemble[stab.eval_rows]
+    classes = list(saved.forest.classes_.tolist())
+    wrong = []
+    for name, t in stab.trees.items():
+        labels = np.asarray(classes, dtype=object)[t.predicted]
+        fid = [float(np.mean(row == truth)) for row in labels]
+        pairs = [float(np.mean(labels[a] == labels[b])) for a in range(len(labels))
+                 for b in range(a + 1, len(labels))]
+        agree = float(np.mean(pairs)) if pairs else 1.0
+        root = sum(list(sets[0]) == list(t.reference[0]) for sets in t.node_sets) / \
+            max(1, len(t.node_sets))
+        if not np.allclose(fid, t.holdout_fidelity, rtol=0, atol=1e-12):
+            wrong.append(f"{name} re-fit fidelities")
+        if abs(agree - t.pairwise_agreement) > 1e-12:
+            wrong.append(f"{name} pairwise agreement {t.pairwise_agreement!r} saved, "
+                         f"{agree!r} counted")
+        if root != t.root_recurrence:
+            wrong.append(f"{name} root recurrence {t.root_recurrence!r} saved, {root!r} counted")
+        tree = saved.surrogate.surrogate if name == "surrogate" else saved.surrogate.greedy
+        own = float(np.mean(np.asarray(tree.predict(filled[stab.eval_rows]), dtype=object)
+                            == truth.astype(object)))
+        if t.reference_fidelity is not None and own != t.reference_fidelity:
+            wrong.append(f"{name} review tree's fidelity {t.reference_fidelity!r} saved, "
+                         f"{own!r} re-scored")
+    verdict.add("stability figures counted again", not wrong,
+                "every figure equals its count from the saved re-fits" if not wrong
+                else "; ".join(wrong))
+
+
+def _rescore_second_model(verdict: Verdict, saved: Review, X: np.ndarray,
+                          ensemble: np.ndarray, files: dict) -> None:
+    """The two models' agreement again, with the second model read from its file."""
+    sm = saved.second_model
+    if sm is None or files.get("second_model") is None:
+        return
+    from .analysis.second_model import aligned_input
+    from .loaders import load_model
+
+    second = load_model(files["second_model"], trusted=bool(saved.inputs.trusted))
+    theirs = second.predict(aligned_input(saved.forest, second, X))
+    same = int(sum(str(a) == str(b) for a, b in zip(ensemble.tolist(), theirs.tolist())))
+    ok = same == int(np.trace(sm.cross)) and X.shape[0] == sm.rows
+    verdict.add("second model's agreement re-counted from its file", ok,
+                f"{same:,} of {X.shape[0]:,} rows alike, as saved" if ok else
+                f"{same:,} of {X.shape[0]:,} rows alike counted, "
+                f"{int(np.trace(sm.cross)):,} of {sm.rows:,} saved")

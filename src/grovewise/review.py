@@ -10,7 +10,6 @@ from __future__ import annotations
 import datetime as _dt
 import gzip
 import json
-import os
 import tempfile
 import threading
 import time
@@ -24,16 +23,22 @@ from .forest import Forest
 from .hashing import sha256_of
 from .loaders import Dataset, from_estimator, load_data, load_native
 from .loaders.exactness import ExactnessCheck, check_exactness
-from .storage import StorageError, decode, encode, load_arrays, read_document, save_arrays
+from .report.atomic import write_atomic
+from .storage import decode, encode, open_saved, tidy_saved_folder, write_arrays_file
 from .progress import Progress, StepMeter, check_cancel
 from .sampling import stratified_rows
 from .summary import ModelSummary, summarize
 from .traversal import use_threads
 from .surrogate.mimic import READABLE_DEFAULTS
 
-STEPS = ("intake", "anatomy", "proximity", "surrogate", "cases")
+STEPS = ("intake", "anatomy", "proximity", "surrogate", "cases", "second_model", "stability")
 REQUIRES = {"intake": (), "anatomy": ("intake",), "proximity": ("intake",),
-            "surrogate": ("intake",), "cases": ("intake", "surrogate")}
+            "surrogate": ("intake",), "cases": ("intake", "surrogate"),
+            "second_model": ("intake", "surrogate"), "stability": ("intake", "surrogate")}
+# The steps every report needs; the others add their sections when they have run.
+REPORT_STEPS = ("intake", "anatomy", "proximity", "surrogate", "cases")
+# Steps made from the surrogate's tree: a new surrogate leaves their results out of date.
+FROM_SURROGATE = ("second_model", "stability")
 DECISIONS = ("pending", "approve", "approve_with_conditions", "reject")
 DECISION_LABELS = {"pending": "not yet decided", "approve": "approve",
                    "approve_with_conditions": "approve with conditions", "reject": "reject"}
@@ -53,11 +58,15 @@ class ReviewInputs:
     target: str | None = None
     holdout: Path | None = None
     trusted: bool = False
+    # a second model over the same features (a retrained version, a challenger), reviewed
+    # beside the first by the second_model step
+    second_model: Path | None = None
 
     def __post_init__(self) -> None:
         self.model = Path(self.model)
         self.data = Path(self.data)
         self.holdout = None if self.holdout in (None, "") else Path(self.holdout)
+        self.second_model = None if self.second_model in (None, "") else Path(self.second_model)
 
 
 @dataclass
@@ -91,6 +100,12 @@ class ReviewSettings:
     # the first rows of those that the interactions use (they cost a walk per feature).
     effects_rows: int = 1_000
     interaction_rows: int = 200
+    # Stability of the rules (grovewise.surrogate.stability): the surrogate and the greedy tree
+    # re-fitted on this many seeded bootstrap resamples of the training rows (0 leaves the
+    # step out), each with this time limit (None: the surrogate's time limit / (2 x resamples),
+    # at least 1 s, so that the step costs at most half the solve on one core).
+    stability_resamples: int = 10
+    stability_time_limit: float | None = None
     # Weak spots (grovewise.weak_spots): when a leaf, the fit or the data deserve a warning.
     leaf_min_holdout_rows: int = 30
     leaf_fidelity_floor: float = 0.8
@@ -100,24 +115,29 @@ class ReviewSettings:
     def validate(self) -> "ReviewSettings":
         """Raise a SettingError naming the first setting out of range."""
         checks = [
-            ("depth", isinstance(self.depth, (int, np.integer)) and 1 <= self.depth <= 4,
+            ("depth", _whole(self.depth) and 1 <= self.depth <= 4,
              "a whole number from 1 to 4"),
             ("max_features_per_split", self.max_features_per_split is None or (
-                isinstance(self.max_features_per_split, (int, np.integer))
+                _whole(self.max_features_per_split)
                 and self.max_features_per_split >= 1), "a whole number of at least 1, or none"),
-            ("alpha", float(self.alpha) >= 0, "zero or more"),
-            ("proximity_threshold", 0 < float(self.proximity_threshold) <= 1,
-             "above 0 and at most 1"),
-            ("time_limit", float(self.time_limit) > 0, "more than 0 seconds"),
-            ("node_limit", self.node_limit is None or int(self.node_limit) >= 1,
+            ("alpha", _number(self.alpha) and self.alpha >= 0, "zero or more"),
+            ("proximity_threshold", _number(self.proximity_threshold)
+             and 0 < self.proximity_threshold <= 1, "above 0 and at most 1"),
+            ("time_limit", _number(self.time_limit) and self.time_limit > 0,
+             "more than 0 seconds"),
+            ("node_limit", self.node_limit is None or (_whole(self.node_limit)
+                                                       and self.node_limit >= 1),
              "a whole number of at least 1, or none"),
-            ("holdout_share", 0 <= float(self.holdout_share) < 0.9, "from 0 to below 0.9"),
-            ("seed", isinstance(self.seed, (int, np.integer)) and self.seed >= 0,
-             "a whole number of 0 or more"),
+            ("holdout_share", _number(self.holdout_share) and 0 <= self.holdout_share < 0.9,
+             "from 0 to below 0.9"),
+            # numpy's RandomState and scikit-learn's random_state take seeds below 2**32
+            ("seed", _whole(self.seed) and self.seed < 2**32,
+             "a whole number from 0 to 4,294,967,295"),
             ("group_columns", isinstance(self.group_columns, (list, tuple)) and all(
                 isinstance(c, str) and c for c in self.group_columns),
              "a list of column names"),
-            ("permutation_repeats", int(self.permutation_repeats) >= 1, "at least 1"),
+            ("permutation_repeats", _whole(self.permutation_repeats)
+             and self.permutation_repeats >= 1, "at least 1"),
             ("permutation_rows", _whole(self.permutation_rows) and (
                 self.permutation_rows == 0 or self.permutation_rows >= 10),
              "0 (every row) or a whole number of at least 10"),
@@ -130,11 +150,19 @@ class ReviewSettings:
              "a whole number from 10 to 100,000"),
             ("interaction_rows", _whole(self.interaction_rows) and 1 <= self.interaction_rows
              <= 10_000, "a whole number from 1 to 10,000"),
+            ("stability_resamples", _whole(self.stability_resamples) and (
+                self.stability_resamples == 0 or 2 <= self.stability_resamples <= 1000),
+             "0 (no stability step) or a whole number from 2 to 1,000"),
+            ("stability_time_limit", self.stability_time_limit is None or (
+                _number(self.stability_time_limit) and self.stability_time_limit > 0),
+             "more than 0 seconds, or none"),
             ("leaf_min_holdout_rows", _whole(self.leaf_min_holdout_rows), "0 or more"),
-            ("leaf_fidelity_floor", 0 <= float(self.leaf_fidelity_floor) <= 1, "from 0 to 1"),
-            ("overfit_gap", 0 <= float(self.overfit_gap) <= 1, "from 0 to 1"),
-            ("near_perfect_target", 0 < float(self.near_perfect_target) <= 1,
-             "above 0 and at most 1"),
+            ("leaf_fidelity_floor", _number(self.leaf_fidelity_floor)
+             and 0 <= self.leaf_fidelity_floor <= 1, "from 0 to 1"),
+            ("overfit_gap", _number(self.overfit_gap) and 0 <= self.overfit_gap <= 1,
+             "from 0 to 1"),
+            ("near_perfect_target", _number(self.near_perfect_target)
+             and 0 < self.near_perfect_target <= 1, "above 0 and at most 1"),
         ]
         for name, ok, what in checks:
             if not ok:
@@ -142,9 +170,22 @@ class ReviewSettings:
                                    f"give {what}.")
         return self
 
+    def stability_seconds(self) -> float:
+        """Each bootstrap re-fit's time limit (see ``stability_time_limit``)."""
+        if self.stability_time_limit is not None:
+            return float(self.stability_time_limit)
+        return max(1.0, float(self.time_limit) / (2 * max(1, int(self.stability_resamples))))
+
 
 def _whole(v) -> bool:
     return isinstance(v, (int, np.integer)) and not isinstance(v, bool) and v >= 0
+
+
+def _number(v) -> bool:
+    """A finite real number (not a bool, not text)."""
+    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
+        return False
+    return isinstance(v, (int, np.integer)) or bool(np.isfinite(v))
 
 
 @dataclass
@@ -297,8 +338,27 @@ class Review:
     def cases(self) -> CasesResult | None:
         return self.results.get("cases")
 
+    @property
+    def second_model(self):
+        """The second_model step's result (a ``SecondModel``); None before it ran or when
+        no second model is given."""
+        return self.results.get("second_model")
+
+    @property
+    def stability(self):
+        """The stability step's result (a ``RuleStability``); None before it ran or when
+        the settings leave it out."""
+        return self.results.get("stability")
+
     def done(self, step: str) -> bool:
         return step in self.results
+
+    def use_checked(self, checked) -> "Review":
+        """Take the data files as the checks before the work read them
+        (:func:`grovewise.preflight.check_review`), so the intake step does not read them
+        a second time. They must be the checks of this review's inputs and settings."""
+        self._checked = checked
+        return self
 
     # ------------------------------------------------------------------ running
     def run(self, steps=STEPS, progress: Progress | None = None,
@@ -334,6 +394,9 @@ class Review:
             if step == "intake":  # new inputs: later results no longer apply
                 for later in STEPS[1:]:
                     self.results.pop(later, None)
+            if step == "surrogate":  # a new tree: what was made from the old one goes
+                for later in FROM_SURROGATE:
+                    self.results.pop(later, None)
         report(step, 1.0, f"{step}: done in {self.timings[step]:.1f} s")
         return result
 
@@ -343,12 +406,17 @@ class Review:
         native = load_native(inp.model, trusted=inp.trusted)
         forest = from_estimator(native)
         check_cancel(cancel, "intake")
-        report("intake", 0.15, f"model read; reading the review data {inp.data.name}")
-        data = load_data(inp.data, forest=forest, target=inp.target, groups=st.group_columns)
-        holdout = None
-        if inp.holdout is not None:
-            holdout = load_data(inp.holdout, forest=forest, target=inp.target,
-                                groups=st.group_columns)
+        checked, self._checked = getattr(self, "_checked", None), None  # used once
+        if checked is not None:  # the checks read the data already: not twice
+            data, holdout = checked.data, checked.holdout
+        else:
+            report("intake", 0.15, f"model read; reading the review data {inp.data.name}")
+            data = load_data(inp.data, forest=forest, target=inp.target,
+                             groups=st.group_columns)
+            holdout = None
+            if inp.holdout is not None:
+                holdout = load_data(inp.holdout, forest=forest, target=inp.target,
+                                    groups=st.group_columns)
         meter = StepMeter(report, "intake", data.X.shape[0], "rows predicted", cancel=cancel,
                           start=0.3, span=0.35)
         proba = proba_in_blocks(forest, data.X, meter)
@@ -589,6 +657,89 @@ class Review:
             out.append(group_fidelity(values, agree, name=column, rows=rows))
         return out
 
+    def _run_second_model(self, report: Progress, cancel: threading.Event | None):
+        """The second model beside the first: its feature usage, its classes on every row,
+        and how well the first model's surrogate explains it (None without one)."""
+        from .analysis.second_model import check_second, second_model
+
+        path = self.inputs.second_model
+        if path is None:
+            report("second_model", 1.0, "second model: none given")
+            return None
+        report("second_model", 0.05, f"reading the second model {path.name}")
+        native = load_native(path, trusted=self.inputs.trusted)
+        forest = from_estimator(native)
+        check_second(self.forest, forest, str(path))
+        check_cancel(cancel, "second_model")
+        X, _ = self._surrogate_rows()
+        from .analysis.second_model import aligned_input
+
+        predicted = np.argmax(self.rows_proba(), axis=1)
+        sample = stratified_rows(predicted, X.shape[0], self.settings.exactness_rows,
+                                 self.settings.seed)
+        report("second_model", 0.3, f"checking {path.name} against its library on "
+               f"{sample.size:,} rows")
+        exactness = check_exactness(forest, native, aligned_input(self.forest, forest,
+                                                                  X[sample.rows]),
+                                    sample=sample.to_dict())
+        if not exactness.passed:
+            raise GrovewiseError(f"{path}: Grovewise does not reproduce the second model's "
+                                 f"predictions: {exactness.text()}.")
+        check_cancel(cancel, "second_model")
+        report("second_model", 0.7, "comparing the two models on every row")
+        sur = self.surrogate
+        held = sur.holdout_rows
+        rows, where = (held, "holdout") if held.size else (sur.train_rows, "training")
+        return second_model(self.forest, forest, X, label=path.name, sha256=sha256_of(path),
+                            trees={"surrogate": sur.surrogate, "greedy": sur.greedy},
+                            eval_rows=rows, evaluated_on=where, X_trees=self.filled(X),
+                            exactness=exactness.text())
+
+    def _run_stability(self, report: Progress, cancel: threading.Event | None):
+        """The surrogate and the greedy tree re-fitted on bootstrap resamples of the training
+        rows (None when ``stability_resamples`` is 0)."""
+        from .executor import Executor
+        from .surrogate.stability import rule_stability
+
+        st = self.settings
+        if not st.stability_resamples:
+            report("stability", 1.0, "stability: left out (stability_resamples is 0)")
+            return None
+        seconds = st.stability_seconds()
+        X, _ = self._surrogate_rows()
+        sur = self.surrogate
+        options = {k: sur.settings.get(k) for k in (
+            "depth", "proximity_threshold", "max_features_per_split", "alpha", "node_limit",
+            "forbidden_features", "usage_floor", "usage_weight")}
+        options["proximity_rows"] = st.proximity_rows
+        B = int(st.stability_resamples)
+        report("stability", 0.0, f"re-fitting the surrogate and the greedy tree on {B} "
+               f"bootstrap resamples, {seconds:g} s each")
+
+        finished = [0]
+        started = time.perf_counter()
+
+        def on_done(done: int, total: int) -> None:
+            finished[0] = done
+            report("stability", done / total, f"bootstrap re-fit {done} of {total} done "
+                   f"({seconds:g} s each)")
+
+        def beat(stop: threading.Event) -> None:  # a word every second while re-fits run
+            while not stop.wait(1.0):
+                report("stability", finished[0] / B, f"bootstrap re-fits: {finished[0]} of "
+                       f"{B} done, {time.perf_counter() - started:.0f} s in")
+
+        stop = threading.Event()
+        threading.Thread(target=beat, args=(stop,), name="stability-beat", daemon=True).start()
+        try:
+            with Executor(self.jobs) as executor:
+                return rule_stability(self.forest, self.filled(X), sur, resamples=B,
+                                      time_limit=seconds, seed=st.seed, options=options,
+                                      proba=self.rows_proba(), executor=executor,
+                                      progress=on_done, cancel=cancel)
+        finally:
+            stop.set()
+
     def write_program(self, path) -> Path:
         """Write the program HiGHS solved in the surrogate step (on its sample) as MPS."""
         from .report.atomic import write_atomic
@@ -660,39 +811,27 @@ class Review:
         }
 
     def save(self, folder) -> Path:
-        """Save to ``folder`` (created if needed). The write is atomic: a crash midway leaves
-        the previously saved review as it was."""
+        """Save to ``folder`` (created if needed). The arrays file is named after its sha256
+        and ``review.json``, written last, is the commit point, both written atomically: a
+        save killed at any point leaves the previously saved review or this one, whole, never
+        a mix; the next save removes what a killed one left."""
         folder = Path(folder)
+        if folder.exists() and not folder.is_dir():
+            raise SettingError(f"Cannot save the review to {folder}: it is a file; choose a "
+                               "folder (it is made if missing).")
         folder.mkdir(parents=True, exist_ok=True)
         tree, arrays = encode(self._state())
-        arrays_tmp = folder / f".arrays-{os.getpid()}-{threading.get_ident()}.npz.tmp"
-        save_arrays(arrays_tmp, arrays)
-        digest = sha256_of(arrays_tmp)
-        arrays_name = f"arrays-{digest[:16]}.npz"
-        os.replace(arrays_tmp, folder / arrays_name)
+        arrays_name, digest = write_arrays_file(folder, arrays)
         doc = {"format": FORMAT, "arrays": arrays_name, "arrays_sha256": digest, "state": tree}
-        text = json.dumps(doc, indent=1, allow_nan=False)
-        json_tmp = folder / f".{REVIEW_FILE}-{os.getpid()}.tmp"
-        json_tmp.write_text(text, encoding="utf-8")
-        os.replace(json_tmp, folder / REVIEW_FILE)  # the commit point
-        for old in folder.glob("arrays-*.npz"):
-            if old.name != arrays_name:
-                old.unlink(missing_ok=True)
+        write_atomic(folder / REVIEW_FILE, json.dumps(doc, indent=1, allow_nan=False))
+        tidy_saved_folder(folder, REVIEW_FILE, arrays_name)
         return folder / REVIEW_FILE
 
     @classmethod
     def open(cls, folder) -> "Review":
         """Reopen a review saved with :meth:`save`; nothing is recomputed."""
-        folder = Path(folder)
-        path = folder / REVIEW_FILE if folder.is_dir() else folder
-        folder = path.parent
-        doc = read_document(path, FORMAT, "saved review",
-                            "choose the folder a review was saved to.")
-        arrays_path = folder / doc["arrays"]
-        if not arrays_path.is_file() or sha256_of(arrays_path) != doc["arrays_sha256"]:
-            raise StorageError(f"{arrays_path}: the arrays file is missing or does not match "
-                               f"{path}; the saved review is incomplete.")
-        state = decode(doc["state"], load_arrays(arrays_path))
+        _path, doc, arrays = open_saved(folder, FORMAT, REVIEW_FILE)
+        state = decode(doc["state"], arrays)
         review = cls.__new__(cls)
         review.inputs = state["inputs"]
         review.settings = state["settings"]

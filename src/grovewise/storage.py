@@ -16,6 +16,7 @@ import dataclasses
 import importlib
 import json
 import math
+import zipfile
 from pathlib import Path, PurePath
 from typing import Any
 
@@ -24,6 +25,7 @@ import numpy as np
 from .errors import GrovewiseError
 
 PACKAGE = "grovewise"
+ZIP_DATE = (1980, 1, 1, 0, 0, 0)  # the earliest date a zip entry can hold
 
 
 class StorageError(GrovewiseError):
@@ -194,10 +196,102 @@ def read_document(path: Path, fmt: str, what: str, missing_hint: str) -> dict:
     return doc
 
 
+# ---------------------------------------------------------------------- a saved folder
+# A saved review's folder holds its document (JSON, written last: the commit point) and one
+# arrays file named after its own sha256, so a save never overwrites the arrays the previous
+# document names: killed at any point, the folder opens as the old review or the new one.
+ARRAYS_GLOB = "arrays-*.npz"
+
+
+def write_arrays_file(folder: Path, arrays: dict[str, np.ndarray]) -> tuple[str, str]:
+    """Write ``arrays`` into ``folder`` as ``arrays-<sha256 prefix>.npz``, atomically.
+
+    Returns
+    -------
+    (str, str)
+        The file's name and its full sha256.
+    """
+    from .hashing import sha256_of
+    from .report.atomic import atomic_named
+
+    digest: list[str] = []
+
+    def name_for(temp: Path) -> str:
+        digest.append(sha256_of(temp))
+        return f"arrays-{digest[0][:16]}.npz"
+
+    with atomic_named(folder, name_for, prefix=".arrays.") as temp:
+        save_arrays(temp, arrays)
+    return f"arrays-{digest[0][:16]}.npz", digest[0]
+
+
+def tidy_saved_folder(folder: Path, doc_name: str, arrays_name: str) -> None:
+    """Remove what earlier or killed saves left in ``folder``: arrays files other than
+    ``arrays_name`` and this module's hidden temporary files (never anything else)."""
+    from .report.atomic import TEMP_SUFFIX
+
+    left = [p for p in folder.glob(ARRAYS_GLOB) if p.name != arrays_name]
+    for pattern in (f".arrays.*{TEMP_SUFFIX}", f".{doc_name}.*{TEMP_SUFFIX}",
+                    ".arrays-*.npz.tmp", f".{doc_name}-*.tmp"):  # the last two: older versions
+        left += folder.glob(pattern)
+    for p in left:
+        p.unlink(missing_ok=True)
+
+
+def open_saved(path, fmt: str, doc_name: str, what: str = "saved review"
+               ) -> tuple[Path, dict, dict[str, np.ndarray]]:
+    """The saved document at ``path`` (its folder or the file) and its arrays, both whole.
+
+    A folder whose write was killed between its last two renames is put right first
+    (:func:`grovewise.report.atomic.restore_folder`). A folder holding only part of a save
+    raises a StorageError that says it is half-written.
+
+    Returns
+    -------
+    (Path, dict, dict)
+        The document's path, the document and its arrays.
+    """
+    from .hashing import sha256_of
+    from .report.atomic import TEMP_SUFFIX, restore_folder
+
+    given = Path(path)
+    missing = [given] + [p for p in given.parents[:2]]
+    for p in reversed(missing):
+        if not p.exists():
+            restore_folder(p)
+    doc_path = given / doc_name if given.is_dir() else given
+    folder = doc_path.parent
+    if not doc_path.exists() and folder.is_dir():
+        parts = sorted(p.name for p in folder.iterdir()
+                       if p.match(ARRAYS_GLOB) or p.name.endswith((TEMP_SUFFIX, ".tmp")))
+        if parts:
+            raise StorageError(f"{folder}: the {what} is half-written: it holds "
+                               f"{', '.join(parts[:3])} but no {doc_name}, which a save writes "
+                               f"last, so the save was interrupted before it finished. Save "
+                               "the review again (or run it again).")
+    doc = read_document(doc_path, fmt, what, "choose the folder a review was saved to.")
+    arrays_path = folder / str(doc.get("arrays"))
+    if not arrays_path.is_file():
+        raise StorageError(f"{folder}: the {what} is half-written: {doc_name} names the arrays "
+                           f"file {doc.get('arrays')}, which is not there (a save or a copy "
+                           "stopped before it finished, or the file was removed). Save the "
+                           "review again (or run it again).")
+    if sha256_of(arrays_path) != doc.get("arrays_sha256"):
+        raise StorageError(f"{arrays_path}: the arrays file does not match {doc_path.name} "
+                           "(its sha256 differs): it was changed, or only partly copied. Copy "
+                           "the saved review again, or run the review again.")
+    return doc_path, doc, load_arrays(arrays_path)
+
+
 def save_arrays(path: Path, arrays: dict[str, np.ndarray]) -> None:
-    """Write ``arrays`` as an uncompressed ``.npz`` (no pickled objects)."""
-    with open(path, "wb") as fh:
-        np.savez(fh, **arrays)
+    """Write ``arrays`` as an uncompressed ``.npz`` (no pickled objects), the same bytes for
+    the same arrays: the zip entries carry a fixed date, not the clock's (``np.savez`` stamps
+    each with the time of writing), so a saved review's files keep their sha256."""
+    with zipfile.ZipFile(path, "w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+        for key, value in arrays.items():
+            entry = zipfile.ZipInfo(f"{key}.npy", date_time=ZIP_DATE)
+            with zf.open(entry, "w", force_zip64=True) as handle:
+                np.lib.format.write_array(handle, np.asanyarray(value), allow_pickle=False)
 
 
 def load_arrays(path: Path) -> dict[str, np.ndarray]:

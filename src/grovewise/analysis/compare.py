@@ -109,7 +109,7 @@ class ModelComparison:
                 for j, n in enumerate(self.feature_names) for c, k in enumerate(self.depths)]
 
 
-def _alignment(a: Forest, b: Forest) -> np.ndarray:
+def feature_order(a: Forest, b: Forest) -> np.ndarray:
     """Column of each of A's features in B, or a DataError naming what differs."""
     if a.n_features != b.n_features or set(a.feature_names) != set(b.feature_names):
         only_a = sorted(set(a.feature_names) - set(b.feature_names))
@@ -151,7 +151,7 @@ def compare_models(a: Forest, b: Forest, weight: str = "count",
     DataError
         When the models' feature names differ.
     """
-    order = _alignment(a, b)
+    order = feature_order(a, b)
     ua, ub = depth_usage(a, weight), depth_usage(b, weight)
     n_depths = max(ua.depths.shape[0], ub.depths.shape[0])
     used_a = ua.split_counts.sum(axis=1) > 0

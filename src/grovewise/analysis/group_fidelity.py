@@ -113,6 +113,31 @@ class GroupFidelity:
                 out["gaps"][t]["gap"] = float(gap.gap)
         return {"kind": "group_fidelity", **out, "sentence": self.sentence()}
 
+    def group_of(self, value, categories=None) -> RowGroup | None:
+        """The group that ``value`` (one row's value of the column) falls in, named as the
+        grouping names it (``categories`` as given when grouping a coded column), or None when
+        no group holds it: a number outside the bins' edges, or a value the rows grouped lack."""
+        if pd.isna(value):
+            label = MISSING
+        elif categories is not None:
+            try:
+                label = str(categories[int(value)])
+            except (KeyError, IndexError, ValueError):  # a code the categories do not name
+                return None
+        elif isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.number)):
+            label = str(value)
+        elif self.edges is not None:
+            edges = np.asarray(self.edges, dtype=np.float64)
+            if not edges[0] <= float(value) <= edges[-1]:
+                return None
+            i = min(int(np.searchsorted(edges, float(value), side="right")) - 1, edges.size - 2)
+            text = _numbers_text(edges)
+            label = f"{text[i]} to {text[i + 1]}"
+        else:  # each value its own group, written with as many digits as the group needed
+            texts = {_number(float(value), digits) for digits in range(3, 18)}
+            label = next((g.label for g in self.groups if g.label in texts), None)
+        return next((g for g in self.groups if g.label == label), None)
+
     def to_rows(self) -> list[dict]:
         """One row per group: its rows and, per tree, fidelity and interval."""
         out = []

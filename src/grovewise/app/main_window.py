@@ -2,7 +2,8 @@
 
 The window owns one :class:`~grovewise.review.Review` at a time. Every step runs in a
 worker thread (:mod:`.workers`); the window only routes the results to the pages, keeps the
-rail's states, and turns problems into dialogs (:mod:`.problems`).
+rail's states, and turns problems into dialogs, or, for files that cannot be opened, into
+the Intake page's problem panel (:mod:`.problems`).
 """
 
 from __future__ import annotations
@@ -18,7 +19,8 @@ from PySide6.QtWidgets import (QApplication, QFileDialog, QHBoxLayout, QLabel, Q
 
 from ..errors import GrovewiseError, UnsafeModelError
 from ..loaders.model_files import SUFFIXES as MODEL_SUFFIXES
-from ..review import REQUIRES, REVIEW_FILE, STEPS, Review, ReviewInputs, ReviewSettings
+from ..review import (FROM_SURROGATE, REQUIRES, REVIEW_FILE, STEPS, Review, ReviewInputs,
+                      ReviewSettings)
 from . import problems, recent, report_bridge, theme
 from .capture import capture_name, capture_page
 from .icon import app_icon
@@ -34,6 +36,9 @@ from .rail import StepRail
 from .workers import LatestCall, TaskRunner, favour_gui_thread, settle_collector
 
 PAGE_ORDER = ("intake", "anatomy", "proximity", "surrogate", "cases", "signoff")
+# Problems of these contexts are listed on the Intake page's problem panel, not in a dialog.
+PANEL_CONTEXTS = frozenset({"opening the files", "opening the sample", "opening the saved review",
+                            "in the intake step"})
 # The settings each step's result depends on: changing one marks the result "stale".
 DEPENDS = {
     "intake": ("holdout_share", "seed"),
@@ -245,6 +250,7 @@ class MainWindow(QMainWindow):
         snapshot = dataclasses.asdict(review.settings)
         self.ran_with = {s: copy.deepcopy(snapshot) for s in STEPS if review.done(s)}
         self.failed_steps = set()
+        self.pages["intake"].problem_panel.clear()  # a new review: earlier problems are past
         done = [s for s in STEPS if review.done(s)]
         self.say(f"{Path(review.inputs.model).name} on {Path(review.inputs.data).name}: "
                  + (f"{len(done)} of {len(STEPS)} steps done." if done else "no step run yet."))
@@ -410,8 +416,9 @@ class MainWindow(QMainWindow):
                     todo.append(need)
             if step not in todo:
                 todo.append(step)
-        if "surrogate" in todo and "cases" not in todo and self.review.done("cases"):
-            todo.append("cases")  # cases follow the surrogate they were made from
+        if "surrogate" in todo:  # what was made from the surrogate follows it
+            todo += [s for s in ("cases",) + FROM_SURROGATE
+                     if s not in todo and self.review.done(s)]
         order = [s for s in STEPS if s in todo]
         self._job_started = time.perf_counter()
 
@@ -468,7 +475,8 @@ class MainWindow(QMainWindow):
 
     def _on_step_done(self, step: str) -> None:
         self.dirty = True
-        if step == "intake":  # later results were dropped by the core
+        if step == "intake":  # later results were dropped by the core; the files are fine
+            self.pages["intake"].problem_panel.clear()
             for later in STEPS[1:]:
                 self.ran_with.pop(later, None)
         self.refresh_pages()
@@ -627,10 +635,19 @@ class MainWindow(QMainWindow):
     def say(self, text: str) -> None:
         self.status_text.setText(text)
 
-    def show_problem(self, exc: BaseException, context: str) -> QMessageBox:
-        """A dialog saying what went wrong and what to do (not blocking)."""
+    def show_problem(self, exc: BaseException, context: str) -> QMessageBox | None:
+        """Say what went wrong and what to do, without blocking: a problem met opening files
+        or in the intake step goes to the Intake page's problem panel (the window stays as
+        it was, ready for other files); any other problem is a dialog."""
         pr = problems.describe(exc, context)
         self.problems.append(pr)
+        if context in PANEL_CONTEXTS:
+            self.pages["intake"].problem_panel.show_problem(pr)
+            self.go("intake")
+            self.say(pr.title + ".")
+            self.update_rail()
+            self.problem_shown.emit(pr.title, pr.text())
+            return None
         box = QMessageBox(QMessageBox.Icon.Warning if pr.expected else QMessageBox.Icon.Critical,
                           pr.title, pr.message, QMessageBox.StandardButton.Ok, self)
         if pr.advice:

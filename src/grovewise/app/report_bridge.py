@@ -1,15 +1,18 @@
 """Where the window gets the report from: whatever the report package offers.
 
 The report package composes a review into a document and renders it (HTML, PDF). The
-window needs two things from it: the HTML for the preview and a way to write the report
-files. It uses ``export_report(review, folder, formats)`` (from ``grovewise.report`` or
-``grovewise.report.content``), and the composer ``review_document(review)`` with
-``render_html`` for the preview.
+window needs two things from it: a way to write the report files and, for the Sign-off
+page's preview, the PDF itself, made the same way. It uses ``export_report(review, folder,
+formats)`` (from ``grovewise.report`` or ``grovewise.report.content``), or else the composer
+``review_document(review)`` with ``write_html`` and ``render_pdf``.
 """
 
 from __future__ import annotations
 
 import importlib
+import os
+import shutil
+import tempfile
 from pathlib import Path
 
 from ..errors import GrovewiseError
@@ -46,14 +49,22 @@ def available() -> bool:
     return _exporter() is not None or _composer() is not None
 
 
-def preview_html(review) -> str | None:
-    """The report as HTML, or None when this version has no composer yet."""
-    compose = _composer()
-    if compose is None:
+def preview_pdf(review, path) -> Path | None:
+    """Write the report of ``review`` as a PDF at ``path``, as :func:`export_report` writes it
+    (for the window's preview); None when this version cannot write reports yet."""
+    if not available():
         return None
-    from ..report.html_report import render_html
-
-    return render_html(compose(review))
+    path = Path(path)
+    folder = Path(tempfile.mkdtemp(prefix=".report-", dir=path.parent))  # beside: one rename
+    try:
+        pdfs = [p for p in export_report(review, folder, ("pdf",)) if p.suffix == ".pdf"]
+        if not pdfs:
+            raise GrovewiseError("the report writer of this version wrote no PDF for the "
+                                 "preview; export the report as HTML instead.")
+        os.replace(pdfs[0], path)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    return path
 
 
 def export_report(review, folder, formats=FORMATS) -> list[Path]:

@@ -3,17 +3,20 @@
 from __future__ import annotations
 
 import sys
+import tempfile
 import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
-from PySide6.QtCore import QRectF, QSize, Qt, QTimer
+from PySide6.QtCore import QCoreApplication, QEvent, QRectF, QSize, Qt, QTimer
 from PySide6.QtGui import QCursor, QImage, QPainter
-from PySide6.QtWidgets import (QFrame, QGridLayout, QHBoxLayout, QLabel, QSizePolicy, QToolTip,
-                               QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QAbstractItemView, QAbstractScrollArea, QFrame, QGridLayout,
+                               QHBoxLayout, QHeaderView, QLabel, QSizePolicy, QTableWidget,
+                               QTableWidgetItem, QToolTip, QVBoxLayout, QWidget)
 
 from . import theme
 from .cautions import cautions
@@ -409,3 +412,176 @@ def hline() -> QFrame:
     line.setFrameShape(QFrame.Shape.HLine)
     line.setStyleSheet(f"color: {theme.RULE};")
     return line
+
+
+def readonly_table(headers: Sequence[str]) -> QTableWidget:
+    """A small table of results: not editable, no row numbers, as large as its contents (it
+    sits in a scrolling page, so it has no vertical scroll bar of its own); each column as
+    wide as its header or its widest text."""
+    table = QTableWidget(0, len(headers))
+    table.setHorizontalHeaderLabels(list(headers))
+    table.verticalHeader().setVisible(False)
+    table.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
+    table.setVerticalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+    table.setSizeAdjustPolicy(QAbstractScrollArea.SizeAdjustPolicy.AdjustToContents)
+    table.setSizePolicy(QSizePolicy.Policy.Maximum, QSizePolicy.Policy.Fixed)
+    table.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+    table.verticalHeader().setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+    table.setWordWrap(False)
+    return table
+
+
+def fill_table(table: QTableWidget, rows: Sequence[Sequence[str]],
+               right: Sequence[int] = ()) -> None:
+    """Put ``rows`` of texts in ``table`` (the columns in ``right`` aligned right, as numbers
+    are)."""
+    table.setRowCount(len(rows))
+    for i, cells in enumerate(rows):
+        for c, text in enumerate(cells):
+            item = QTableWidgetItem(str(text))
+            if c in right:
+                item.setTextAlignment(Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignVCenter)
+            table.setItem(i, c, item)
+
+
+class PdfPreview(QWidget):
+    """A PDF file shown page under page, fitted to the width (Qt's PDF module).
+
+    The preview owns the files it shows: each comes from :meth:`new_path` (a file in a
+    temporary folder of the preview's own) and is deleted when a newer one is shown, when the
+    preview is cleared, and when the window it watches (:meth:`watch`) closes or the program
+    quits. Files of previews that were overtaken before they were shown go with them.
+    """
+
+    PREFIX = "preview-"
+
+    def __init__(self, parent=None) -> None:
+        super().__init__(parent)
+        from PySide6.QtPdf import QPdfDocument
+        from PySide6.QtPdfWidgets import QPdfView
+
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.setSpacing(4)
+        self.status = wrapped("", muted=True)
+        lay.addWidget(self.status)
+        self.document = QPdfDocument(self)
+        self.view = QPdfView(self)
+        self.view.setDocument(self.document)
+        self.view.setPageMode(QPdfView.PageMode.MultiPage)
+        self.view.setZoomMode(QPdfView.ZoomMode.FitToWidth)
+        self.view.setPageSpacing(12)
+        self.view.setStyleSheet(f"background: {theme.RAIL};")
+        lay.addWidget(self.view, 1)
+        self.view.hide()
+        # The view draws a page in a thread the first time it shows it; its renderer (a child
+        # the view makes, not public API) says when a page is drawn. Until then, or a few
+        # seconds, the preview counts as being prepared (a capture waits for it).
+        self.rendering = False
+        self._settle = QTimer(self)
+        self._settle.setSingleShot(True)
+        self._settle.setInterval(3000)
+        self._settle.timeout.connect(self._rendered)
+        from PySide6.QtPdf import QPdfPageRenderer
+
+        renderer = self.view.findChild(QPdfPageRenderer)
+        if renderer is not None:
+            renderer.pageRendered.connect(self._rendered)
+        self._knows_rendering = renderer is not None
+        self.path: Path | None = None  # the file shown
+        self._folder: tempfile.TemporaryDirectory | None = None
+        self._serial = 0
+        self._watched: QWidget | None = None
+        app = QCoreApplication.instance()
+        if app is not None:
+            app.aboutToQuit.connect(self.discard)
+
+    # ------------------------------------------------------------------ files
+    def new_path(self) -> Path:
+        """A new file name for the next preview (in the preview's temporary folder)."""
+        if self._folder is None:
+            self._folder = tempfile.TemporaryDirectory(prefix="grovewise-preview-")
+        self._serial += 1
+        return Path(self._folder.name) / f"{self.PREFIX}{self._serial:06d}.pdf"
+
+    def show_file(self, path) -> bool:
+        """Show the PDF at ``path`` (one from :meth:`new_path`); the one shown before and any
+        older unshown ones are deleted. False (and a message) if Qt cannot read it."""
+        from PySide6.QtPdf import QPdfDocument
+
+        path = Path(path)
+        self.document.close()
+        self._remove_older(path)
+        self.path = path
+        error = self.document.load(str(path))
+        if error != QPdfDocument.Error.None_:
+            self.document.close()
+            self.view.hide()
+            self.status.setText(f"The preview {path.name} could not be read ({error.name}); "
+                                "export the PDF to look at it.")
+            return False
+        self.view.show()
+        self.rendering = self._knows_rendering
+        self._settle.start()
+        QTimer.singleShot(0, self, self._prime)
+        return True
+
+    def _prime(self) -> None:
+        """Paint the view once, off screen: the view renders a page the first time it paints
+        it (in a thread), so a preview scrolled out of sight would be blank in a capture."""
+        if self.path is not None and self.view.isVisibleTo(self.window()):
+            self.view.viewport().grab()
+        else:
+            self._rendered()  # not on screen: nothing to wait for
+
+    def _rendered(self, *_page) -> None:
+        self.rendering = False
+        self._settle.stop()
+
+    def page_count(self) -> int:
+        return int(self.document.pageCount())
+
+    def set_message(self, text: str) -> None:
+        """Say ``text`` above the preview (the PDF shown stays until replaced or cleared)."""
+        self.status.setText(text)
+
+    def clear(self, text: str = "") -> None:
+        """Show nothing; the file shown is deleted."""
+        self._rendered()
+        self.document.close()
+        self.view.hide()
+        if self.path is not None:
+            self.path.unlink(missing_ok=True)
+            self.path = None
+        self.status.setText(text)
+
+    def discard(self) -> None:
+        """Clear and delete the temporary folder with every preview file in it."""
+        self.clear()
+        if self._folder is not None:
+            self._folder.cleanup()
+            self._folder = None
+
+    def _remove_older(self, path: Path) -> None:
+        if self.path is not None and self.path != path:
+            self.path.unlink(missing_ok=True)
+        if self._folder is None or not path.name.startswith(self.PREFIX):
+            return
+        for old in Path(self._folder.name).glob(f"{self.PREFIX}*.pdf"):
+            if old.name < path.name:  # a preview overtaken before it was shown
+                old.unlink(missing_ok=True)
+
+    # ------------------------------------------------------------------ the window closing
+    def watch(self, window: QWidget) -> None:
+        """Delete the preview's files when ``window`` closes."""
+        self._watched = window
+        window.installEventFilter(self)
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._watched and event.type() == QEvent.Type.Close:
+            QTimer.singleShot(0, self, self._after_close)  # the window may yet refuse
+        return False
+
+    def _after_close(self) -> None:
+        if self._watched is not None and not self._watched.isVisible():
+            self.discard()

@@ -20,9 +20,11 @@ from . import figures_effects as fe
 from ..cautions import CAUTIONS
 from ..hashing import sha256_of
 from .atomic import write_atomic
-from .document import (Code, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table,
-                       Title)
+from .document import (Code, Contents, Document, Figure, Heading, KeyValues, PageBreak, Paragraph,
+                       Table, Title, setting_text)
 from ..effects_summary import DISAGREEMENT_ROWS
+from .evidence import evidence_rows, second_model_section, stability_section
+from .figures_performance import SHARE as RELIABILITY_SHARE, reliability_figure
 from .figures_surrogate import surrogate_tree_figure
 from .html_report import render_html
 from .manifest import build_manifest, deterministic, library_versions, saved_review_entry
@@ -63,13 +65,15 @@ def review_document(review, date: _dt.datetime | None = None) -> Document:
               "date": date, "reviewer": reviewer,
               "decision": DECISION_TEXT.get(rv.decision, rv.decision)})
     doc.add(Title("Model review", f"{intake.summary.kind.replace('_', ' ')} · "
-                                  f"{Path(inp.model).name} on {Path(inp.data).name}"))
+                                  f"{Path(inp.model).name} on {Path(inp.data).name}",
+                  own_page=True), Contents(), PageBreak())
     _summary(doc, review)
     _intake(doc, review)
     _samples(doc, review)
     _anatomy(doc, review)
     _proximity(doc, review)
     _surrogate(doc, review)
+    second_model_section(doc, review)
     _effects(doc, review)
     _cases(doc, review)
     _limitations(doc, review)
@@ -235,6 +239,7 @@ def _summary(doc: Document, review) -> None:
         *_axis_rows(review),
         ("Certificate", certificate_line(review)),
         ("Solver", f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),
+        *evidence_rows(review),
         ("Decision", DECISION_TEXT.get(review.reviewer.decision, review.reviewer.decision)),
     ]
     flags = review.anatomy.flags
@@ -320,6 +325,10 @@ def _performance(doc: Document, review) -> None:
                    for b in perf.reliability],
                   caption=f"Reliability ({perf.reliability_definition})",
                   formats=[".2f", ".2f", ",d", ".3f", ".3f"]))
+    doc.add(Figure(reliability_figure(perf), width=RELIABILITY_SHARE,
+                   caption="Reliability: each bin's observed share against its mean predicted "
+                           "probability (the rows of the table above) beside the diagonal of "
+                           "perfect calibration; under it, the rows in each bin"))
 
 
 value_text = fe.value_text  # a row's value as the data gives it (a category by name)
@@ -478,6 +487,7 @@ def _surrogate(doc: Document, review) -> None:
                   "row can reach is left out)",
                   formats=[None, None, ",d", ".1%", ".1%", ",d", ".1%"]))
     _groups(doc, review)
+    stability_section(doc, review)
     cert = sur.certificate
     doc.add(Heading("Solver certificate", 2))
     doc.add(KeyValues([
@@ -706,7 +716,7 @@ def _reproduce(doc: Document, review) -> None:
            if deterministic(review) else
            "compares the digests of intake, anatomy and proximity exactly, and the fidelity "
            "within 0.02 (the solve was bounded by the clock, so its tree may differ).")))
-    settings = [(k, str(v)) for k, v in review.settings_dict().items()]
+    settings = [(k, setting_text(v)) for k, v in review.settings_dict().items()]
     settings.append(("missing values (surrogate)", "training medians"))
     doc.add(KeyValues(settings, caption="Settings"))
     doc.add(KeyValues(list(library_versions().items()), caption="Library versions"))

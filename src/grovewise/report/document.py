@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import numbers
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import date, datetime, timezone
 from typing import Any, Literal, Union
@@ -25,10 +26,16 @@ META_ORDER = ("model", "data", "hashes", "date", "reviewer")
 
 @dataclass
 class Title:
-    """The document's opening title, with an optional subtitle under it."""
+    """The document's opening title, with an optional subtitle under it.
+
+    With ``own_page`` the title and the document's particulars (``Document.meta``: model,
+    data, reviewer, decision, date) fill a title page of their own, and the next block starts
+    on a new page.
+    """
 
     text: str
     subtitle: str = ""
+    own_page: bool = False
 
 
 @dataclass
@@ -161,7 +168,24 @@ class PageBreak:
     """Start the next block on a new page (PDF) or a new printed page (HTML)."""
 
 
-Block = Union[Title, Heading, Paragraph, KeyValues, Table, Figure, Code, PageBreak]
+@dataclass
+class Contents:
+    """The list of contents, placed here: the headings down to level ``levels`` (1 to 3),
+    each with its page number in the PDF and a link in the HTML."""
+
+    title: str = "Contents"
+    levels: int = 2
+
+    def __post_init__(self) -> None:
+        if self.levels not in HEADING_LEVELS:
+            raise SettingError(f"Contents levels {self.levels!r}: use 1, 2 or 3.")
+
+    def entries(self, blocks: list) -> list["Heading"]:
+        """The headings it lists, in reading order."""
+        return [b for b in blocks if isinstance(b, Heading) and b.level <= self.levels]
+
+
+Block = Union[Title, Heading, Paragraph, KeyValues, Table, Figure, Code, PageBreak, Contents]
 
 
 @dataclass
@@ -246,11 +270,19 @@ class Document:
 
 
 def format_value(value: Any, spec: str | None = None) -> str:
-    """A cell or particular as text: numbers by ``spec`` (or a readable default), None blank."""
+    """A cell or particular as text: numbers by ``spec`` (or a readable default), None blank.
+
+    A mapping or a list reads as plain text, never as code: ``{"age": "protected"}`` gives
+    ``age: protected``, ``[1, 2]`` gives ``1, 2``, an empty one ``none``."""
     if value is None:
         return ""
     if isinstance(value, (bool, np.bool_)):
         return "yes" if value else "no"
+    if isinstance(value, Mapping):
+        return "; ".join(f"{format_value(k)}: {setting_text(v, spec)}" for k, v in value.items()) or "none"
+    if isinstance(value, (list, tuple, set, frozenset, np.ndarray)):
+        items = sorted(value, key=str) if isinstance(value, (set, frozenset)) else list(value)
+        return ", ".join(setting_text(v, spec) for v in items) or "none"
     if _is_number(value):
         if isinstance(value, numbers.Real) and math.isnan(float(value)):
             return "n/a"
@@ -260,6 +292,12 @@ def format_value(value: Any, spec: str | None = None) -> str:
             return str(int(value))
         return _default_float(float(value))
     return clean_text(str(value))
+
+
+def setting_text(value: Any, spec: str | None = None) -> str:
+    """A setting's value as text: like :func:`format_value`, but an unset value (None) reads
+    ``none`` instead of a blank."""
+    return "none" if value is None else format_value(value, spec)
 
 
 def clean_text(text: str) -> str:

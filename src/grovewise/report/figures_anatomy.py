@@ -20,7 +20,9 @@ from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import Normalize, TwoSlopeNorm
 from matplotlib.figure import Figure
+from matplotlib.font_manager import FontProperties
 from matplotlib.patches import FancyBboxPatch, Rectangle
+from matplotlib.textpath import text_to_path
 from matplotlib.ticker import MaxNLocator, PercentFormatter
 
 from ..analysis.compare import ModelComparison
@@ -37,6 +39,12 @@ FLAG_STYLE = {"protected": ("◆", "#AA3377"), "forbidden": ("✖", "#CC3311")}
 ACCENT = "#4477AA"
 MAX_TEXT_COLUMNS = 24
 MAX_TEXT_ROWS = 40
+# Print size: the report's text width is 6.55 in and a figure may be 8.4 in high under its
+# heading and caption, so figures drawn at most this size print at their own size, where no
+# text is smaller than SMALLEST_TEXT points (the report's floor is 6 pt).
+PRINT_WIDTH = 6.5
+PRINT_HEIGHT = 8.2
+SMALLEST_TEXT = 6.5
 
 
 # ---------------------------------------------------------------------------- helpers
@@ -160,13 +168,12 @@ def depth_usage_figure(usage: DepthUsage, flags: Mapping[str, str] | None = None
     labels = [flag_label(n, flags) for n in names]
     shares = usage.shares[rows]
     n_rows, n_cols = max(len(rows), 1), usage.depths.shape[0]
-    with_text = n_cols <= MAX_TEXT_COLUMNS and n_rows <= MAX_TEXT_ROWS
-    cell_w = 0.42 if with_text else max(0.13, min(0.42, 7.5 / n_cols))
-    width = _label_inches(labels) + n_cols * cell_w + 2.6
-    height = max(0.3 * n_rows + 2.7, 4.2)
-    fig = new_figure(max(width, 7.0), height)
-    gs = fig.add_gridspec(2, 3, width_ratios=[n_cols * cell_w, 1.5, 0.12],
-                          height_ratios=[min(0.6, max(0.3, 0.06 * n_rows)), 0.3 * n_rows])
+    heat_in = PRINT_WIDTH - _label_inches(labels, 8.0) - 2.3  # less the bars and the scale
+    with_text = n_cols <= MAX_TEXT_COLUMNS and n_rows <= MAX_TEXT_ROWS and heat_in / n_cols >= 0.24
+    row_in = min(0.3, (PRINT_HEIGHT - 2.7) / n_rows)
+    fig = new_figure(PRINT_WIDTH, max(row_in * n_rows + 2.7, 4.2))
+    gs = fig.add_gridspec(2, 3, width_ratios=[heat_in, 1.5, 0.12],
+                          height_ratios=[min(0.6, max(0.3, 0.06 * n_rows)), row_in * n_rows])
     ax = fig.add_subplot(gs[1, 0], label="heat map")
     top = fig.add_subplot(gs[0, 0], sharex=ax, label="splits per depth")
     side = fig.add_subplot(gs[1, 1], sharey=ax, label="all depths")
@@ -178,9 +185,9 @@ def depth_usage_figure(usage: DepthUsage, flags: Mapping[str, str] | None = None
                       aspect="auto", interpolation="nearest")
     if with_text:
         for (r, c), v in np.ndenumerate(shares):
-            ax.text(c, r, _percent(v), ha="center", va="center", fontsize=7.5,
+            ax.text(c, r, _percent(v), ha="center", va="center", fontsize=7,
                     color=_text_colour(cmap(norm(v))))
-    _depth_axes(ax, usage.depths, names, labels, flags, with_text)
+    _depth_axes(ax, usage.depths, names, labels, flags, with_text, max_ticks=int(heat_in / 0.2))
     _frame_flagged_rows(ax, names, flags, n_cols)
     _depth_totals(top, usage)
     _overall_bars(side, usage.overall_share[rows], names, flags)
@@ -189,7 +196,7 @@ def depth_usage_figure(usage: DepthUsage, flags: Mapping[str, str] | None = None
                   fontsize=8, color=INK)
     bar.ax.yaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 5, 10]))
     bar.ax.yaxis.set_major_formatter(PercentFormatter(xmax=1.0, decimals=0 if vmax >= 0.05 else 1))
-    bar.ax.tick_params(labelsize=7.5)
+    bar.ax.tick_params(labelsize=7)
     _title(fig, title or "Where the trees split on each feature, by depth", _scope_text(usage))
     notes = [] if with_text else ["Cells too small to print values; the CSV table has them."]
     if clipped:
@@ -203,16 +210,20 @@ def depth_usage_figure(usage: DepthUsage, flags: Mapping[str, str] | None = None
     legend = _flag_legend_text(flags, names)
     if legend:
         notes.append("Flagged: " + legend)
-    _footnote(fig, notes, width=int(max(width, 7.0) * 15))
+    _footnote(fig, notes, width=int(PRINT_WIDTH * 17))
     return fig
 
 
-def _depth_axes(ax, depths, names, labels, flags, with_text: bool) -> None:
-    ax.set_yticks(range(len(names)), labels, fontsize=9)
+def _depth_axes(ax, depths, names, labels, flags, with_text: bool,
+                max_ticks: int | None = None) -> None:
+    ax.set_yticks(range(len(names)), labels, fontsize=8)
     _style_flagged_ticklabels(ax.get_yticklabels(), names, flags)
-    step = 1 if len(depths) <= 30 else int(np.ceil(len(depths) / 25))
-    ax.set_xticks(range(0, len(depths), step), [str(int(d)) for d in depths[::step]], fontsize=8)
-    ax.set_xlabel("depth (root = 0)", fontsize=9, color=INK)
+    if max_ticks is None:  # wide figures: every depth up to 30, else about 25 labels
+        step = 1 if len(depths) <= 30 else int(np.ceil(len(depths) / 25))
+    else:
+        step = max(1, int(np.ceil(len(depths) / max(max_ticks, 1))))
+    ax.set_xticks(range(0, len(depths), step), [str(int(d)) for d in depths[::step]], fontsize=7.5)
+    ax.set_xlabel("depth (root = 0)", fontsize=8, color=INK)
     ax.tick_params(length=0)
     for s in ax.spines.values():
         s.set_visible(False)
@@ -246,7 +257,7 @@ def _overall_bars(ax, values, names, flags) -> None:
     ax.barh(range(len(values)), values, color=colours, height=0.65)
     vmax = float(values.max()) if len(values) else 1.0
     for r, v in enumerate(values):
-        ax.text(v + 0.02 * vmax, r, f"{100 * v:.1f}%", va="center", fontsize=7.5, color=INK)
+        ax.text(v + 0.02 * vmax, r, f"{100 * v:.1f}%", va="center", fontsize=7, color=INK)
     ax.set_xlim(0, vmax * 1.45 if vmax > 0 else 1)
     ax.set_title("all depths", fontsize=8, color=MUTED, loc="left")
     ax.tick_params(which="both", labelleft=False, left=False, labelsize=7, colors=MUTED)
@@ -257,39 +268,77 @@ def _overall_bars(ax, values, names, flags) -> None:
 
 
 # ---------------------------------------------------------------------------- position map
-def _node_xy(position: int) -> tuple[float, int]:
-    depth = int(position + 1).bit_length() - 1
-    index = position - (2 ** depth - 1)
-    return (index + 0.5) / 2 ** depth, depth
+BOX_HALF = 0.3  # half a node box's height, in levels
+BOX_LEAST_IN = 1.2  # a node box is at least this wide (inches): "feature_name  12%" fits
+BOX_MOST_IN = 1.6
+BOX_GAP = 0.015  # between neighbouring boxes, as a share of the map's width
+STAGGER = 0.72  # levels between the staggered rows of one depth
+LEVEL_IN = 0.95  # inches per level
+
+
+def _position_rows(max_depth: int, inches: float) -> list[int]:
+    """Rows per depth: a depth whose boxes would be narrower than ``BOX_LEAST_IN`` side by
+    side puts every other box on a row of its own below."""
+    return [2 if BOX_LEAST_IN * 2 ** d > inches + 1e-9 else 1 for d in range(max_depth + 1)]
+
+
+def _position_layout(max_depth: int, inches: float) -> tuple[dict, float, float, float]:
+    """Centre (x in 0..1 across, y in levels down) of every position; the box width (in
+    units of x); the margin beyond 0 and 1 that the outermost boxes need; and the lowest y."""
+    rows = _position_rows(max_depth, inches)
+    box_w = min(min(rows[d] / 2 ** d for d in range(max_depth + 1)) - BOX_GAP, BOX_MOST_IN / inches)
+    margin = max(0.0, box_w / 2 - 0.5 / 2 ** max_depth) + BOX_GAP / 4
+    centres, base = {}, 0.0
+    for d in range(max_depth + 1):
+        for index in range(2 ** d):
+            centres[2 ** d - 1 + index] = ((index + 0.5) / 2 ** d, base + (index % rows[d]) * STAGGER)
+        bottom = base + (rows[d] - 1) * STAGGER
+        base = bottom + 1.0
+    return centres, box_w, margin, bottom
+
+
+def _fitted(name: str, flags, suffix: str, fontsize: float, bold: bool, inches: float) -> str:
+    """``name`` (with its flag's glyph) and ``suffix`` in at most ``inches`` at ``fontsize``,
+    the name shortened (keeping both ends) until it fits, as measured with the font's own
+    metrics."""
+    prop = FontProperties(family="DejaVu Sans", size=fontsize, weight="bold" if bold else "normal")
+    width = len(str(name)) + 2
+    while True:
+        text = f"{flag_label(name, flags, width)}{suffix}"
+        w, _, _ = text_to_path.get_text_width_height_descent(text, prop, ismath=False)
+        if w <= inches * 72.0 or width <= 6:
+            return text
+        width -= 1
 
 
 def position_map_figure(usage: PositionUsage, flags: Mapping[str, str] | None = None,
                         title: str | None = None) -> Figure:
-    """The top levels of a tree drawn as node boxes.
+    """The top levels of a tree drawn as node boxes, at the report's print width.
 
     Each box names the features the trees split on at that position with their shares; a
     bar along its foot shows the leading feature's share (how much the trees agree there).
     Edge widths follow how many trees reach the position; flagged features are coloured and
-    a box led by one is framed in the flag's colour.
+    a box led by one is framed in the flag's colour. Where a level's boxes would be too
+    narrow to name a feature side by side, they alternate between two rows. Up to four
+    levels (the review's) it is drawn at the report's print width; deeper maps are wider.
     """
     md = usage.max_depth
-    n_bottom = 2 ** md
-    box_in = 1.75 if md <= 3 else 1.25
-    width = min(max(n_bottom * box_in + 0.6, 8.0), 26.0)
-    height = 1.2 * (md + 1) + 1.5
+    width = PRINT_WIDTH if md <= 3 else min(max(2 ** md * 1.25 + 0.6, 8.0), 26.0)
+    inches = width - 0.15  # the map's own width
+    centres, box_w, margin, bottom = _position_layout(md, inches)
+    height = (bottom + 0.8) * LEVEL_IN + 1.5
     fig = new_figure(width, height)
     ax = fig.add_subplot(1, 1, 1, label="position map")
-    box_w = 0.9 / n_bottom if md >= 2 else 0.22
-    fontsize = 8.0 if md <= 3 else 7.0
-    # Characters that fit a box in bold, less room for the "  12%" after the name.
-    chars = max(8, int(0.92 * box_w * (width - 0.4) / (fontsize * 0.64 / 72.0)) - 5)
+    fontsize = 7.0
+    text_in = 0.95 * box_w * inches / (1 + 2 * margin)  # the width a box's text may take
     lines = 3 if md <= 3 else 2
-    _position_edges(ax, usage)
+    _position_edges(ax, usage, centres)
     shown = set()
     for c, pos in enumerate(usage.positions):
-        shown |= _position_box(ax, usage, c, int(pos), box_w, flags, lines, chars, fontsize)
-    ax.set_xlim(0, 1)
-    ax.set_ylim(md + 0.4, -0.4)
+        shown |= _position_box(ax, usage, c, int(pos), centres[int(pos)], box_w, flags, lines,
+                               text_in, fontsize)
+    ax.set_xlim(-margin, 1 + margin)
+    ax.set_ylim(bottom + 0.4, -0.4)
     ax.set_axis_off()
     _title(fig, title or "Which feature the trees split on at each node position",
            _scope_text(usage) + f" · top {md + 1} levels")
@@ -299,28 +348,25 @@ def position_map_figure(usage: PositionUsage, flags: Mapping[str, str] | None = 
     legend = _flag_legend_text(flags, sorted(shown))
     if legend:
         notes.append("Flagged: " + legend)
-    _footnote(fig, notes, width=int(width * 15))
+    _footnote(fig, notes, width=int(width * 17))
     return fig
 
 
-BOX_HALF = 0.3
-
-
-def _position_edges(ax, usage: PositionUsage) -> None:
+def _position_edges(ax, usage: PositionUsage, centres: dict) -> None:
     reach = usage.n_reached / max(usage.n_trees, 1)
     for c, pos in enumerate(usage.positions):
         if pos == 0:
             continue
-        x, d = _node_xy(int(pos))
-        px, pd = _node_xy((int(pos) - 1) // 2)
-        ax.plot([px, x], [pd + BOX_HALF, d - BOX_HALF], color=GRID if reach[c] == 0 else MUTED,
+        x, y = centres[int(pos)]
+        px, py = centres[(int(pos) - 1) // 2]
+        ax.plot([px, x], [py + BOX_HALF, y - BOX_HALF], color=GRID if reach[c] == 0 else MUTED,
                 solid_capstyle="round", linewidth=0.6 + 3.0 * float(reach[c]), zorder=1)
 
 
-def _position_box(ax, usage: PositionUsage, c: int, pos: int, box_w: float, flags,
-                  lines: int, chars: int, fontsize: float) -> set[str]:
+def _position_box(ax, usage: PositionUsage, c: int, pos: int, centre: tuple[float, float],
+                  box_w: float, flags, lines: int, text_in: float, fontsize: float) -> set[str]:
     """Draw one node box; returns the names of the features it shows."""
-    x, d = _node_xy(pos)
+    x, d = centre
     col = usage.shares[:, c]
     order = [j for j in np.lexsort((np.arange(col.shape[0]), -col))[:lines] if col[j] > 0]
     lead_kind = (flags or {}).get(usage.feature_names[order[0]]) if order else None
@@ -329,21 +375,21 @@ def _position_box(ax, usage: PositionUsage, c: int, pos: int, box_w: float, flag
         (x - box_w / 2, d - BOX_HALF), box_w, 2 * BOX_HALF,
         boxstyle="round,pad=0.0,rounding_size=0.01", facecolor="white", edgecolor=edge,
         linewidth=2.2 if lead_kind else 0.9, linestyle="-" if order else "--", zorder=2))
+    small = max(fontsize - 1.0, SMALLEST_TEXT)
     if not order:
-        ax.text(x, d, f"#{pos}\nno split", ha="center", va="center", fontsize=fontsize - 1,
+        ax.text(x, d, f"#{pos}\nno split", ha="center", va="center", fontsize=small,
                 color=MUTED, zorder=3)
         return set()
     for k, j in enumerate(order):
         name = usage.feature_names[j]
         kind = (flags or {}).get(name)
-        # Lines after the first are smaller and not bold: a few more characters fit.
-        fit = chars if k == 0 else chars + 4
-        ax.text(x, d - 0.2 + 0.13 * k, f"{flag_label(name, flags, fit)}  {100 * col[j]:.0f}%",
-                ha="center", va="center", fontsize=fontsize if k == 0 else fontsize - 1,
+        size = fontsize if k == 0 else small  # lines after the first: smaller, not bold
+        ax.text(x, d - 0.2 + 0.13 * k, _fitted(name, flags, f"  {100 * col[j]:.0f}%", size, k == 0, text_in),
+                ha="center", va="center", fontsize=size,
                 color=FLAG_STYLE[kind][1] if kind else INK,
                 fontweight="bold" if k == 0 else "normal", zorder=3)
     ax.text(x, d + 0.2, f"#{pos}   n={int(usage.n_reached[c])}", ha="center", va="center",
-            fontsize=fontsize - 1.5, color=MUTED, zorder=3)
+            fontsize=SMALLEST_TEXT, color=MUTED, zorder=3)
     inner = box_w * 0.86
     left = x - inner / 2
     ax.add_patch(Rectangle((left, d + 0.245), inner, 0.03, facecolor=GRID, linewidth=0,
@@ -378,7 +424,8 @@ def threshold_strips_figure(profiles: ThresholdProfiles, features: Sequence[str]
     n = max(len(chosen), 1)
     labels = [flag_label(f.feature, flags, 26) for f in chosen]
     n_cat = sum(f.is_categorical for f in chosen)
-    fig = new_figure(_label_inches(labels) + 7.8, 0.62 * n + 0.25 * n_cat + 2.2)
+    strip_in = min(0.62, (PRINT_HEIGHT - 2.2 - 0.25 * n_cat) / n)
+    fig = new_figure(PRINT_WIDTH, strip_in * n + 0.25 * n_cat + 2.2)
     gs = fig.add_gridspec(n, 1, hspace=0.55 if n_cat else 0.0)
     axes, numeric = [], []
     for r, fc in enumerate(chosen):
@@ -393,7 +440,7 @@ def threshold_strips_figure(profiles: ThresholdProfiles, features: Sequence[str]
         for ax in axes[:-1]:
             ax.tick_params(labelbottom=False)
         axes[-1].set_xlabel("position of the cut in the review data (share of values sent "
-                            "left, 0 = smallest, 1 = largest)", fontsize=8.5, color=INK)
+                            "left, 0 = smallest, 1 = largest)", fontsize=8, color=INK)
         axes[-1].set_xticks(np.linspace(0.0, 1.0, 6))
         axes[-1].xaxis.set_major_formatter(PercentFormatter(xmax=1.0, decimals=0))
     sub = (f"review data: {profiles.n_rows} rows · rule: {profiles.rule}" if profiles.has_data
@@ -411,7 +458,7 @@ def threshold_strips_figure(profiles: ThresholdProfiles, features: Sequence[str]
     legend = _flag_legend_text(flags, [f.feature for f in chosen])
     if legend:
         notes.append("Flagged: " + legend)
-    _footnote(fig, notes)
+    _footnote(fig, notes, width=int(PRINT_WIDTH * 17))
     return fig
 
 
@@ -467,14 +514,14 @@ def _one_strip(ax, fc, label: str, has_data: bool, bins: int, flags) -> None:
 def _strip_frame(ax, fc, label: str, kind, colour, info: str) -> None:
     ax.set_ylim(0, 1.25)
     ax.set_yticks([])
-    ax.set_ylabel(label, rotation=0, ha="right", va="center", fontsize=9,
+    ax.set_ylabel(label, rotation=0, ha="right", va="center", fontsize=8,
                   color=colour if kind else INK, fontweight="bold" if kind else "normal")
-    ax.text(1.0, 0.5, info, transform=ax.transAxes, fontsize=7, color=MUTED, va="center",
-            ha="left")
+    ax.text(1.0, 0.5, info, transform=ax.transAxes, fontsize=SMALLEST_TEXT, color=MUTED,
+            va="center", ha="left")
     for s in ("top", "right", "left"):
         ax.spines[s].set_visible(False)
     ax.spines["bottom"].set_color(GRID)
-    ax.tick_params(labelsize=7.5, colors=MUTED, length=2)
+    ax.tick_params(labelsize=7, colors=MUTED, length=2)
 
 
 def _outside_marks(ax, fc) -> None:
@@ -504,14 +551,16 @@ def importance_figure(cmp: ImportanceComparison, flags: Mapping[str, str] | None
     labels = [flag_label(n, flags) for n in names]
     n = max(len(order), 1)
     panels = 2 if cmp.has_permutation else 1
-    width = _label_inches(labels) + 3.6 * panels + 0.6
-    fig = new_figure(max(width, 7.0), 0.3 * n + 2.6)
+    width = PRINT_WIDTH
+    panel_in = (width - _label_inches(labels, 8.0) - 0.3) / panels
+    fig = new_figure(width, min(0.3, (PRINT_HEIGHT - 2.6) / n) * n + 2.6)
     gs = fig.add_gridspec(1, panels)
     ax = fig.add_subplot(gs[0, 0], label="impurity")
     mdi = cmp.impurity_method == METHOD_MDI
     _importance_panel(ax, cmp.impurity[order], None, cmp.impurity_rank[order], names, flags,
-                      "impurity importance (share)" if mdi else "total split gain (share)")
-    ax.set_yticks(range(len(names)), labels, fontsize=9)
+                      "impurity importance (share)" if mdi else "total split gain (share)",
+                      panel_in)
+    ax.set_yticks(range(len(names)), labels, fontsize=8)
     _style_flagged_ticklabels(ax.get_yticklabels(), names, flags)
     ax.invert_yaxis()
     if cmp.has_permutation:
@@ -519,7 +568,7 @@ def importance_figure(cmp: ImportanceComparison, flags: Mapping[str, str] | None
         s = cmp.permutation_setting
         _importance_panel(ax2, cmp.permutation_mean[order], cmp.permutation_std[order],
                           cmp.permutation_rank[order], names, flags,
-                          f"permutation importance (drop in {s['scoring']})")
+                          f"permutation importance (drop in {s['scoring']})", panel_in)
         ax2.tick_params(labelleft=False)
     sub = cmp.impurity_method
     if cmp.has_permutation:
@@ -538,7 +587,7 @@ def importance_figure(cmp: ImportanceComparison, flags: Mapping[str, str] | None
     legend = _flag_legend_text(flags, names)
     if legend:
         notes.append("Flagged: " + legend)
-    _footnote(fig, notes, width=int(max(width, 7.0) * 15))
+    _footnote(fig, notes, width=int(width * 17))
     return fig
 
 
@@ -547,7 +596,8 @@ def _number(v: float) -> str:
     return "0" if v == 0 else f"{v:.3g}".replace("-", "−")
 
 
-def _importance_panel(ax, values, errors, ranks, names, flags, xlabel: str) -> None:
+def _importance_panel(ax, values, errors, ranks, names, flags, xlabel: str,
+                      inches: float = 3.0) -> None:
     colours = [FLAG_STYLE[(flags or {})[n]][1] if (flags or {}).get(n) else ACCENT for n in names]
     y = np.arange(len(values))
     ax.barh(y, values, xerr=errors, color=colours, height=0.65,
@@ -559,10 +609,11 @@ def _importance_panel(ax, values, errors, ranks, names, flags, xlabel: str) -> N
     span = max(vmax - vmin, 1e-12)
     for r, (v, e, k) in enumerate(zip(values, reach, ranks)):
         ax.text(max(e, v, 0) + 0.02 * span, r, f"{_number(v)}  #{int(k)}", va="center",
-                fontsize=7.5, color=INK)
-    ax.set_xlim(vmin - 0.02 * span, vmax + 0.4 * span)
+                fontsize=7, color=INK)
+    ax.set_xlim(vmin - 0.02 * span, vmax + 0.5 * span)
     ax.axvline(0, color=MUTED, linewidth=0.8)
-    ax.set_xlabel(xlabel, fontsize=9, color=INK)
+    ax.set_xlabel(textwrap.fill(xlabel, max(20, int(inches * 72 / (8 * 0.56)))), fontsize=8,
+                  color=INK)
     ax.tick_params(axis="x", labelsize=7.5, colors=MUTED)
     ax.tick_params(axis="y", left=False, labelcolor=INK)
     ax.grid(axis="x", color=GRID, linewidth=0.6)

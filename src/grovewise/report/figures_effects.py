@@ -35,11 +35,12 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from .figures_anatomy import (ACCENT, DIFF_CMAP, FLAG_STYLE, GRID, INK, MUTED, _footnote,
-                              _title, flag_label, new_figure, short_label)
+from .figures_anatomy import (ACCENT, DIFF_CMAP, FLAG_STYLE, GRID, INK, MUTED, PRINT_WIDTH,
+                              SMALLEST_TEXT, _footnote, _title, flag_label, new_figure,
+                              short_label)
 
-WIDTH = 6.5  # inches: the report's text width is 6.55 in, so it prints at this size
-SMALL = 6.5  # the smallest text drawn (points at print size)
+WIDTH = PRINT_WIDTH  # inches: the report's text width is 6.55 in, so it prints at this size
+SMALL = SMALLEST_TEXT  # the smallest text drawn (points at print size)
 OTHER_CLASSES = "#9aa4ad"
 STEEP_FILL = "#e4ebf3"
 SURROGATE_CUT = "#b0653a"

@@ -14,7 +14,8 @@ import os
 from pathlib import Path
 
 from .atomic import write_atomic
-from .document import Code, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table, Title
+from .document import (Code, Contents, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table,
+                       Title, format_value)
 
 FIGURE_DPI = 150
 CSP = "default-src 'none'; img-src data:; style-src 'unsafe-inline'"
@@ -28,6 +29,7 @@ html { background: #eef1f3; }
 body { margin: 0 auto; max-width: 58rem; padding: 3rem 4rem 4rem; background: var(--paper);
        color: var(--ink); font: 15px/1.55 "DejaVu Sans", "Segoe UI", "Helvetica Neue", Arial, sans-serif; }
 header.front { border-bottom: 2px solid var(--accent); padding-bottom: 1.25rem; margin-bottom: 1.5rem; }
+header.title-page { padding-top: 2rem; }
 h1.title { font-size: 1.9rem; line-height: 1.2; margin: 0 0 .35rem; letter-spacing: -.01em; }
 p.subtitle { color: var(--muted); font-size: 1.05rem; margin: 0 0 1.1rem; }
 dl.meta, dl.kv { display: grid; grid-template-columns: minmax(8rem, max-content) 1fr; margin: 0;
@@ -102,8 +104,10 @@ def render_html(doc: Document) -> str:
     title, body = doc.front()
     captions = doc.numbered_captions()
     anchors = _anchors(body)
-    parts = [_head(doc), "<body>", _front(doc, title), _toc(body, anchors), "<main>"]
-    parts += [_block(b, captions, anchors) for b in body]
+    placed = any(isinstance(b, Contents) for b in body)  # else the contents follow the front
+    parts = [_head(doc), "<body>", _front(doc, title), "" if placed else _toc(body, anchors), "<main>"]
+    parts += [_toc(body, anchors, b) if isinstance(b, Contents) else _block(b, captions, anchors)
+              for b in body]
     parts += ["</main>", _footer(doc), "</body>", "</html>", ""]
     return "\n".join(parts)
 
@@ -129,12 +133,15 @@ def _head(doc: Document) -> str:
 
 def _front(doc: Document, title: Title) -> str:
     rows = "".join(f"<div><dt>{_e(k)}</dt><dd>{_e(v)}</dd></div>" for k, v in doc.meta_rows())
-    parts = ['<header class="front">', f'<h1 class="title">{_e(title.text)}</h1>']
+    parts = ['<header class="front title-page">' if title.own_page else '<header class="front">',
+             f'<h1 class="title">{_e(title.text)}</h1>']
     if title.subtitle:
         parts.append(f'<p class="subtitle">{_e(title.subtitle)}</p>')
     if rows:
         parts.append(f'<dl class="meta">{rows}</dl>')
     parts.append("</header>")
+    if title.own_page:
+        parts.append('<div class="page-break" aria-hidden="true"></div>')
     return "\n".join(parts)
 
 
@@ -142,9 +149,12 @@ def _anchors(blocks: list) -> dict[int, str]:
     return {id(b): f"sec-{i}" for i, b in enumerate(x for x in blocks if isinstance(x, Heading))}
 
 
-def _toc(blocks: list, anchors: dict[int, str]) -> str:
+def _toc(blocks: list, anchors: dict[int, str], contents: Contents | None = None) -> str:
+    """The contents as nested lists of links: each heading below level 1 listed under the
+    level-1 heading before it."""
+    contents = contents or Contents()
     items: list[tuple[Heading, list[Heading]]] = []
-    for heading in (b for b in blocks if isinstance(b, Heading) and b.level <= 2):
+    for heading in contents.entries(blocks):
         if heading.level == 1 or not items:
             items.append((heading, []))
         else:
@@ -155,7 +165,8 @@ def _toc(blocks: list, anchors: dict[int, str]) -> str:
     def link(h: Heading) -> str:
         return f'<a href="#{anchors[id(h)]}">{_e(h.text)}</a>'
 
-    lines = ['<nav class="toc" aria-label="Contents">', '<p class="toc-label">Contents</p>', "<ol>"]
+    label = _e(contents.title)
+    lines = [f'<nav class="toc" aria-label="{label}">', f'<p class="toc-label">{label}</p>', "<ol>"]
     for heading, children in items:
         sub = "".join(f"<li>{link(c)}</li>" for c in children)
         lines.append(f"<li>{link(heading)}" + (f"<ol>{sub}</ol>" if sub else "") + "</li>")
@@ -174,7 +185,8 @@ def _block(block: object, captions: dict[int, str], anchors: dict[int, str]) -> 
     if isinstance(block, Paragraph):
         return _paragraph(block)
     if isinstance(block, KeyValues):
-        rows = "".join(f"<div><dt>{_e(k)}</dt><dd>{_e(v)}</dd></div>" for k, v in block.rows)
+        rows = "".join(f"<div><dt>{_e(format_value(k))}</dt><dd>{_e(format_value(v))}</dd></div>"
+                       for k, v in block.rows)
         head = f'<p class="caption">{_e(caption)}</p>' if caption else ""
         return f'{head}<dl class="kv">{rows}</dl>'
     if isinstance(block, Table):

@@ -108,6 +108,9 @@ def build_manifest(review, report_files: dict | None = None) -> dict:
             "holdout": file_entry(inp.holdout, intake.holdout_sha256 if intake else None),
             "target": inp.target,
             "trusted": inp.trusted,
+            "second_model": file_entry(
+                getattr(inp, "second_model", None),
+                getattr(getattr(review, "second_model", None), "sha256", None)),
         },
         "settings": to_plain(st),
         "seeds": {"review": st.seed, "holdout_split": st.seed, "permutation_importance": st.seed,
@@ -118,10 +121,32 @@ def build_manifest(review, report_files: dict | None = None) -> dict:
         "versions": library_versions(),
         "certificate": certificate,
         "fidelity": to_plain(getattr(surrogate, "fidelity", None)) if surrogate else None,
+        "stability": stated_stability(getattr(review, "stability", None)),
+        "second_model": stated_second_model(getattr(review, "second_model", None)),
         "digests": {step: digest(result) for step, result in review.results.items()},
         "reviewer": to_plain(review.reviewer),
         "report_files": report_files or {},
     }
+
+
+def stated_stability(stability) -> dict | None:
+    """The stability figures the report states, per tree (None when the step did not run)."""
+    if stability is None:
+        return None
+    return {name: {"root_recurrence": t.root_recurrence, "unstable": t.unstable,
+                   "pairwise_agreement": t.pairwise_agreement,
+                   "reference_fidelity": t.reference_fidelity,
+                   "fidelity": t.fidelity_spread(),
+                   "recurrence": [float(v) for v in t.recurrence()]}
+            for name, t in stability.trees.items()}
+
+
+def stated_second_model(second) -> dict | None:
+    """The second model's figures the report states (None without a second model)."""
+    if second is None:
+        return None
+    return to_plain({"label": second.label, "agreement": second.agreement,
+                     "rows": second.rows, "cross": second.cross, "explains": second.explains})
 
 
 def deterministic(review) -> bool:

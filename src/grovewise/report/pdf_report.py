@@ -8,18 +8,25 @@ searched and read back with ``pdftotext``. The layout works in two steps:
    known height, measured with the same font metrics matplotlib uses to draw; units are
    placed top to bottom and a new page starts when the next one does not fit. Tables
    repeat their header after a page break, headings stay with what follows them.
+   Where a table breaks, at least ``MIN_ROWS`` rows stay on each side; a table of at most
+   ``KEEP_WHOLE`` of a page is moved whole rather than broken; and when the rows carried
+   over would leave their page more than half empty, the break moves to where the emptier
+   of the two pages is fullest (rows move over from the page before, or the whole table
+   does). These rules re-run the flow with a page break moved earlier until none applies.
 2. *draw*: once the page count is known, each page is drawn as one matplotlib figure
-   with its running header (title, model) and footer (date, "Page N of M").
+   with its running header (title, model) and footer (date, "Page N of M"); the list of
+   contents gets its page numbers from the flow (its entries' heights do not depend on them).
 
-Figures are embedded as 200 dpi images, scaled to their share of the text width.
+Figures are embedded as 200 dpi images, scaled to their share of the text width; a figure
+whose smallest text would print under ``MIN_PRINTED_TEXT`` points at that share is widened
+(up to the text width) until it does not.
 """
 
 from __future__ import annotations
 
-import re
-
 import io
 import os
+import re
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from functools import lru_cache
@@ -29,19 +36,20 @@ import numpy as np
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure as MplFigure
 from matplotlib.font_manager import FontProperties
-from matplotlib.image import imread
 from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
+from matplotlib.text import Text as MplText
 from matplotlib.textpath import text_to_path
 
 from .atomic import atomic_path
-from .document import (Code, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table, Title,
-                       format_value)
+from .document import (Code, Contents, Document, Figure, Heading, KeyValues, PageBreak, Paragraph, Table,
+                       Title, format_value)
 
 # A4 in PostScript points (ISO 216: 210 x 297 mm, 72 points to the inch).
 PAGE_W, PAGE_H = 595.276, 841.890
 MARGIN_X = 62.0
 BODY_TOP, BODY_BOTTOM = 80.0, PAGE_H - 68.0
+BODY_H = BODY_BOTTOM - BODY_TOP
 TEXT_W = PAGE_W - 2 * MARGIN_X
 HEADER_BASELINE, FOOTER_BASELINE = 46.0, PAGE_H - 38.0
 FIGURE_DPI = 200
@@ -54,6 +62,13 @@ ASCENT, DESCENT = 0.928, 0.236
 CELL_PAD_X, CELL_PAD_Y = 5.0, 3.0
 ROW_WHOLE_LINES, ROW_PIECE_LINES = 12, 6
 HEADING_ALLOWANCE = 60.0  # a page-high figure still leaves room for the heading above it
+MIN_PRINTED_TEXT = 6.0  # points: no figure text is printed smaller where widening helps
+MIN_ROWS = 3  # rows of a table kept on each side of a page break
+KEEP_WHOLE = 0.4  # a table at most this share of a page high is moved whole, never broken
+HALF_PAGE = 0.5 * BODY_H + 12.0  # "at least half full", with a line to spare
+MAX_PASSES = 40  # flows tried while moving page breaks earlier
+TITLE_PAGE_DROP = 0.2 * BODY_H  # the title page's title starts this far down
+CONTENTS_NUMBER_W = 34.0  # the column of page numbers in the list of contents
 
 
 @dataclass(frozen=True)
@@ -80,6 +95,11 @@ CELL_HEAD = _Font(8.3, weight="bold")
 KEY = _Font(8.3, weight="bold", color=MUTED)
 CODE = _Font(7.6, mono=True)
 TITLE = _Font(21.0, weight="bold")
+TITLE_PAGE = _Font(28.0, weight="bold")
+PARTICULAR_KEY = _Font(9.5, weight="bold", color=MUTED)
+PARTICULAR = _Font(10.0)
+CONTENTS_ENTRY = {1: _Font(9.5, weight="bold"), 2: _Font(9.5), 3: _Font(8.5, color=MUTED)}
+CONTENTS_INDENT = {1: 0.0, 2: 14.0, 3: 28.0}
 SUBTITLE = _Font(11.5, color=MUTED)
 HEADINGS = {1: _Font(14.5, weight="bold", color=ACCENT), 2: _Font(11.5, weight="bold"),
             3: _Font(10.0, weight="bold", color=MUTED)}
@@ -108,6 +128,7 @@ class _Rule:
     y: float
     width: float = 0.4
     color: str = RULE
+    dotted: bool = False
 
     def shifted(self, dy: float) -> "_Rule":
         return replace(self, y=self.y + dy)
@@ -139,6 +160,23 @@ class _Image:
 
 
 @dataclass
+class _PageRef:
+    """The number of the page a heading lands on, drawn once the flow knows it."""
+
+    x: float
+    y: float  # baseline
+    anchor: int
+    font: _Font
+    ha: str = "right"
+
+    def shifted(self, dy: float) -> "_PageRef":
+        return replace(self, y=self.y + dy)
+
+    def resolved(self, pages: dict[int, int]) -> _Text:
+        return _Text(self.x, self.y, str(pages.get(self.anchor, "")), self.font, self.ha)
+
+
+@dataclass
 class _Unit:
     """Something placed whole: its height and its ops relative to its own top."""
 
@@ -152,7 +190,9 @@ class _Run:
     """One block as units. ``lead`` units must start on the same page; after a page break
     inside the run at unit ``body_start`` or later, ``repeat`` units (a table's caption and
     header) are placed again; ``frame`` draws
-    the background or rules of each piece (top y, bottom y) on a page."""
+    the background or rules of each piece (top y, bottom y) on a page. ``rows`` marks a
+    table's run (its units after ``body_start`` are rows: they keep ``MIN_ROWS`` on each side
+    of a break); ``anchor`` is the id of the heading the run shows."""
 
     units: list[_Unit]
     lead: int = 1
@@ -163,6 +203,8 @@ class _Run:
     gap_after: float = BLOCK_GAP
     keep_with_next: bool = False
     page_break: bool = False
+    rows: bool = False
+    anchor: int | None = None
 
     def lead_height(self) -> float:
         units = self.units[: self.lead]
@@ -251,6 +293,8 @@ def _line_units(lines: list[str], font: _Font, x: float, first_space: float = 0.
 # --- blocks to runs -------------------------------------------------------------------------
 
 def _title_runs(doc: Document, title: Title) -> list[_Run]:
+    if title.own_page:
+        return _title_page_runs(doc, title)
     units = _line_units(_wrap(title.text, TITLE, TEXT_W), TITLE, MARGIN_X)
     if title.subtitle:
         units += _line_units(_wrap(title.subtitle, SUBTITLE, TEXT_W), SUBTITLE, MARGIN_X, first_space=3.0)
@@ -259,6 +303,46 @@ def _title_runs(doc: Document, title: Title) -> list[_Run]:
     if doc.meta_rows():
         runs.append(_key_values_run(doc.meta_rows(), ""))
     return runs
+
+
+def _title_page_runs(doc: Document, title: Title) -> list[_Run]:
+    """A page of its own: the title set a fifth of the way down, the subtitle, a rule and the
+    particulars (model, data, hashes, date, reviewer, decision) in a larger type."""
+    units = [_Unit(TITLE_PAGE_DROP)]
+    units += _line_units(_wrap(title.text, TITLE_PAGE, TEXT_W), TITLE_PAGE, MARGIN_X)
+    if title.subtitle:
+        units += _line_units(_wrap(title.subtitle, SUBTITLE, TEXT_W), SUBTITLE, MARGIN_X, first_space=6.0)
+    units.append(_Unit(26.0, [_Rule(MARGIN_X, MARGIN_X + TEXT_W, 12.0, 1.6, ACCENT)]))
+    runs = [_Run(units, lead=len(units), gap_after=8.0)]
+    if doc.meta_rows():
+        runs.append(_key_values_run(doc.meta_rows(), "", PARTICULAR_KEY, PARTICULAR))
+    return runs + [_Run([], lead=0, gap_after=0.0, page_break=True)]
+
+
+def _contents_runs(block: Contents, body: list) -> list[_Run]:
+    """The list of contents: each heading's text, a dotted leader and its page number (a
+    ``_PageRef``, filled in once the flow has placed the heading)."""
+    entries = block.entries(body)
+    if not entries:
+        return []
+    head = _heading_run(Heading(block.title, 1))
+    head.anchor = None  # the list does not list itself
+    right = MARGIN_X + TEXT_W
+    units = []
+    for heading in entries:
+        font, indent = CONTENTS_ENTRY[heading.level], CONTENTS_INDENT[heading.level]
+        x = MARGIN_X + indent
+        lines = _wrap(heading.text, font, TEXT_W - indent - CONTENTS_NUMBER_W)
+        ops: list = [_Text(x, _baseline(font, i * font.leading), line, font) for i, line in enumerate(lines)]
+        base = _baseline(font, (len(lines) - 1) * font.leading)
+        leader_from = x + _width(lines[-1], font) + 5.0
+        leader_to = right - _width("000", font) - 5.0
+        if leader_to > leader_from:
+            ops.append(_Rule(leader_from, leader_to, base, 0.9, FAINT, dotted=True))
+        ops.append(_PageRef(right, base, id(heading), font))
+        units.append(_Unit(len(lines) * font.leading + 1.0, ops,
+                           space_before=5.0 if heading.level == 1 else 0.0))
+    return [head, _Run(units, lead=min(MIN_ROWS, len(units)))]
 
 
 def _heading_run(block: Heading) -> _Run:
@@ -270,7 +354,8 @@ def _heading_run(block: Heading) -> _Run:
     if block.level == 1:
         ops.append(_Rule(MARGIN_X, MARGIN_X + TEXT_W, height + 2.5, 0.6, RULE))
         height += 2.5
-    return _Run([_Unit(height, ops, space_before=before)], gap_after=after, keep_with_next=True)
+    return _Run([_Unit(height, ops, space_before=before)], gap_after=after, keep_with_next=True,
+                anchor=id(block))
 
 
 def _paragraph_run(block: Paragraph) -> _Run:
@@ -305,14 +390,24 @@ def _caption_unit(text: str, width: float = TEXT_W, x: float = MARGIN_X, space: 
     return [_Unit(len(lines) * CAPTION.leading + 3.0, ops, space_before=space)]
 
 
-def _key_values_run(rows: list[tuple[str, str]], caption: str) -> _Run:
-    key_w = min(max((_width(k, KEY) for k, _ in rows), default=0.0) + 14.0, 0.34 * TEXT_W)
+def _key_values_run(rows: list[tuple[str, str]], caption: str, key_font: _Font = KEY,
+                    value_font: _Font = CELL) -> _Run:
+    key_w = min(max((_width(format_value(k), key_font) for k, _ in rows), default=0.0) + 14.0, 0.34 * TEXT_W)
     units = _caption_unit(caption) if caption else []
+    start = len(units)
     for k, v in rows:
-        cells = [_wrap(format_value(k), KEY, key_w - 14.0), _wrap(format_value(v), CELL, TEXT_W - key_w)]
-        units += _row_units(cells, [KEY, CELL], [MARGIN_X, MARGIN_X + key_w], [key_w, TEXT_W - key_w],
-                            ["left", "left"], rule=True, pad_x=0.0)
-    return _Run(units, lead=min(len(units), 3))
+        cells = [_wrap(format_value(k), key_font, key_w - 14.0), _wrap(format_value(v), value_font, TEXT_W - key_w)]
+        units += _row_units(cells, [key_font, value_font], [MARGIN_X, MARGIN_X + key_w],
+                            [key_w, TEXT_W - key_w], ["left", "left"], rule=True, pad_x=0.0)
+    return _Run(units, lead=_rows_lead(units, start), body_start=start, rows=True)
+
+
+def _rows_lead(units: list[_Unit], body_start: int) -> int:
+    """Units that must start on one page: all of a short table (it moves whole), else its
+    caption, header and first ``MIN_ROWS`` rows."""
+    if sum(u.height for u in units) <= KEEP_WHOLE * BODY_H:
+        return len(units)
+    return min(len(units), body_start + MIN_ROWS)
 
 
 def _row_units(cells: list[list[str]], fonts: list[_Font], xs: list[float], widths: list[float],
@@ -394,14 +489,16 @@ def _table_run(block: Table, caption: str) -> _Run:
     def frame(y0: float, y1: float) -> list:
         return [_Rule(MARGIN_X, right, y1, 0.8, INK)]
 
-    return _Run(cap + head + body, lead=len(cap) + len(head) + min(2, len(body)), repeat=repeat,
-                body_start=len(cap) + len(head), frame=frame)
+    units = cap + head + body
+    start = len(cap) + len(head)
+    return _Run(units, lead=_rows_lead(units, start), repeat=repeat, body_start=start, frame=frame,
+                rows=True)
 
 
 def _figure_run(block: Figure, caption: str) -> _Run:
     pixels = _rasterize(block.figure)
     h_px, w_px = pixels.shape[:2]
-    width = block.width * TEXT_W
+    width = _figure_width(block)
     height = width * h_px / w_px
     cap_h = _caption_height(caption, width)
     room = (BODY_BOTTOM - BODY_TOP) - cap_h - HEADING_ALLOWANCE
@@ -415,16 +512,37 @@ def _figure_run(block: Figure, caption: str) -> _Run:
     return _Run([_Unit(height + cap_h, ops, space_before=2.0)], gap_after=BLOCK_GAP + 2.0)
 
 
+def _figure_width(block: Figure) -> float:
+    """The figure's share of the text width, widened (up to the whole width) where its
+    smallest text would otherwise print under ``MIN_PRINTED_TEXT`` points."""
+    width = block.width * TEXT_W
+    smallest = _smallest_text(block.figure)
+    if smallest:
+        natural = block.figure.get_figwidth() * 72.0  # points at the figure's own size
+        width = min(TEXT_W, max(width, MIN_PRINTED_TEXT * natural / smallest))
+    return width
+
+
+def _smallest_text(figure) -> float | None:
+    """The smallest font size (points, at the figure's own size) of the text a drawn
+    matplotlib figure shows, or None when it shows none."""
+    sizes = [t.get_fontsize() for t in figure.findobj(MplText) if t.get_visible() and t.get_text().strip()]
+    return min(sizes) if sizes else None
+
+
 def _caption_height(caption: str, width: float) -> float:
     return (sum(u.height for u in _caption_unit(caption, width)) + 6.0) if caption else 0.0
 
 
 def _rasterize(figure) -> np.ndarray:
+    """The figure drawn at ``FIGURE_DPI`` on white, as RGB pixels (matplotlib's raw RGBA
+    output: the same pixels as its PNG, without encoding and decoding one)."""
     buffer = io.BytesIO()
-    figure.savefig(buffer, format="png", dpi=FIGURE_DPI, facecolor="white")
-    buffer.seek(0)
-    rgba = imread(buffer, format="png")
-    return (np.clip(rgba[..., :3], 0.0, 1.0) * 255 + 0.5).astype(np.uint8)
+    figure.savefig(buffer, format="rgba", dpi=FIGURE_DPI, facecolor="white")
+    data = np.frombuffer(buffer.getbuffer(), dtype=np.uint8)
+    width = figure.get_figwidth() * FIGURE_DPI  # Agg's canvas is int(width) pixels wide
+    w_px = next(w for w in (int(width), round(width), int(width) + 1) if w and (data.size // 4) % w == 0)
+    return data.reshape(-1, w_px, 4)[..., :3].copy()
 
 
 def _code_runs(block: Code, caption: str) -> list[_Run]:
@@ -476,6 +594,8 @@ def _runs(doc: Document) -> list[_Run]:
             runs += _code_runs(block, caption)
         elif isinstance(block, PageBreak):
             runs.append(_Run([], lead=0, gap_after=0.0, page_break=True))
+        elif isinstance(block, Contents):
+            runs += _contents_runs(block, body)
         else:
             raise TypeError(f"The report cannot show a block of type {type(block).__name__}.")
     return runs
@@ -484,14 +604,27 @@ def _runs(doc: Document) -> list[_Run]:
 # --- flow: runs to pages --------------------------------------------------------------------
 
 class _Flow:
-    """Places runs top to bottom on pages; a page is a list of ops."""
+    """Places runs top to bottom on pages; a page is a list of ops.
 
-    def __init__(self) -> None:
+    ``breaks`` maps a run's index to the unit that must start a new page: a table's break
+    earlier than the page would make it, or 0 to start the run (the first of a chain of
+    headings and what they head) on a new page. The flow records what the rules of
+    ``_layout`` look at: the height used on each page, where each run's pieces fall and
+    starts, and each heading's page.
+    """
+
+    def __init__(self, breaks: dict[int, int] | None = None) -> None:
+        self.breaks = dict(breaks or {})
         self.pages: list[list] = []
+        self.used: list[float] = []  # per page: the height taken, from the body's top
+        self.anchors: dict[int, int] = {}  # heading id -> page number (from 1)
+        self.pieces: dict[int, list[tuple[int, int, int]]] = {}  # run -> (page, first unit, end)
+        self.starts: dict[int, tuple[int, float]] = {}  # run -> (page, height used before it)
         self.new_page()
 
     def new_page(self) -> None:
         self.pages.append([])
+        self.used.append(0.0)
         self.y = BODY_TOP
         self.fresh = True
 
@@ -508,9 +641,10 @@ class _Flow:
                 if not self.fresh:
                     self.new_page()
                 continue
-            if not self.fresh and self._needed(runs, i) > self.room():
+            if not self.fresh and (self.breaks.get(i) == 0 or self._needed(runs, i) > self.room()):
                 self.new_page()
-            self.place(run)
+            self.starts[i] = (len(self.pages) - 1, self.used[-1])
+            self.place(run, i)
         return self.pages
 
     def _needed(self, runs: list[_Run], i: int) -> float:
@@ -526,19 +660,26 @@ class _Flow:
             j += 1
         return need
 
-    def place(self, run: _Run) -> None:
+    def place(self, run: _Run, index: int = -1) -> None:
         piece = self._open(run)
+        first = 0
+        pieces = self.pieces.setdefault(index, [])
         for k, unit in enumerate(run.units):
             space = 0.0 if self.fresh else unit.space_before
-            if not self.fresh and space + unit.height + run.pad[1] > self.room():
+            forced = 0 < k == self.breaks.get(index)
+            if not self.fresh and (forced or space + unit.height + run.pad[1] > self.room()):
                 self._close(run, piece)
+                pieces.append((len(self.pages) - 1, first, k))
                 self.new_page()
-                piece = self._open(run)
+                piece, first = self._open(run), k
                 for repeated in run.repeat if 0 < k and run.body_start <= k else []:
                     self._put(repeated, 0.0)
                 space = 0.0
             self._put(unit, space)
+            if k == 0 and run.anchor is not None:
+                self.anchors[run.anchor] = len(self.pages)
         self._close(run, piece)
+        pieces.append((len(self.pages) - 1, first, len(run.units)))
         self.y = min(self.y + run.gap_after, BODY_BOTTOM)
 
     def _open(self, run: _Run) -> tuple[int, float]:
@@ -551,12 +692,89 @@ class _Flow:
         self.y += run.pad[1]
         if run.frame is not None and len(self.ops) > index:
             self.ops[index:index] = run.frame(top, self.y)
+        self.used[-1] = max(self.used[-1], self.y - BODY_TOP)
 
     def _put(self, unit: _Unit, space: float) -> None:
         self.y += space
         self.ops.extend(op.shifted(self.y) for op in unit.ops)
         self.y += unit.height
+        self.used[-1] = max(self.used[-1], self.y - BODY_TOP)
         self.fresh = False
+
+
+def _layout(runs: list[_Run]) -> _Flow:
+    """Flow the runs, then move a table's page break earlier while a rule asks for it
+    (``_earlier_break``), and flow again."""
+    breaks: dict[int, int] = {}
+    flow = _Flow(breaks)
+    flow.place_all(runs)
+    for _ in range(MAX_PASSES):
+        moved = _earlier_break(runs, flow, breaks)
+        if moved is None:
+            break
+        breaks[moved[0]] = moved[1]
+        flow = _Flow(breaks)
+        flow.place_all(runs)
+    return flow
+
+
+def _earlier_break(runs: list[_Run], flow: _Flow, breaks: dict[int, int]) -> tuple[int, int] | None:
+    """The first table whose last page break breaks a rule, with the unit that should start
+    its last page instead; None when every table is laid out well.
+
+    Rules: the rows carried over to the table's last page are at least ``MIN_ROWS``; and
+    when they leave that page more than half empty, the break moves to where the emptier of
+    the two pages is fullest: rows move over (``MIN_ROWS`` stay behind), or the whole table
+    with the headings chained to it (then unit 0 of the chain's first run is returned)."""
+    for i, run in enumerate(runs):
+        pieces = flow.pieces.get(i, [])
+        if not run.rows or len(pieces) < 2:
+            continue
+        (p0, a0, _), (p1, a1, b1) = pieces[-2], pieces[-1]
+        first_body = max(a0, run.body_start)  # the earliest unit that may start the last page
+        k = None
+        if b1 - a1 < MIN_ROWS:
+            widow = len(run.units) - MIN_ROWS
+            if widow - first_body >= MIN_ROWS:
+                k = widow
+        elif flow.used[p1] < HALF_PAGE:
+            k, low = _balanced_break(run, flow, p0, p1, a1, first_body)
+            j = _chain_start(runs, i)
+            page, before = flow.starts[j]
+            if len(pieces) == 2 and _whole_height(run) <= BODY_H and page == p0 and breaks.get(j) != 0:
+                whole = min(before, flow.used[p1] + flow.used[p0] - before)
+                if whole > low:
+                    return j, 0
+        if k is not None and k < min(a1, breaks.get(i, len(run.units))):
+            return i, k
+    return None
+
+
+def _balanced_break(run: _Run, flow: _Flow, p0: int, p1: int, a1: int, first_body: int) -> tuple[int, float]:
+    """The unit to start the table's last page ``p1`` with (at or before ``a1``) so that the
+    emptier of ``p0`` and ``p1`` is as full as it can be, the fewest rows moved; and that
+    page's height used."""
+    best_k, best = a1, min(flow.used[p0], flow.used[p1])
+    moved = 0.0
+    for k in range(a1 - 1, first_body + MIN_ROWS - 1, -1):
+        moved += run.units[k].height
+        low = min(flow.used[p0] - moved, flow.used[p1] + moved)
+        if low > best:
+            best_k, best = k, low
+        if flow.used[p1] + moved >= HALF_PAGE:
+            break
+    return best_k, best
+
+
+def _chain_start(runs: list[_Run], i: int) -> int:
+    """The first of the headings chained to run ``i`` (``i`` itself when none is)."""
+    while i > 0 and runs[i - 1].keep_with_next and not runs[i - 1].page_break:
+        i -= 1
+    return i
+
+
+def _whole_height(run: _Run) -> float:
+    return sum(u.height for u in run.units) + sum(run.pad)
 
 
 # --- drawing --------------------------------------------------------------------------------
@@ -597,7 +815,8 @@ def _draw(fig: MplFigure, op: object) -> None:
                  ha=op.ha, va="baseline", parse_math=False, usetex=False)
     elif isinstance(op, _Rule):
         fig.add_artist(Line2D([fx(op.x0), fx(op.x1)], [fy(op.y), fy(op.y)], transform=fig.transFigure,
-                              linewidth=op.width, color=op.color, solid_capstyle="butt"))
+                              linewidth=op.width, color=op.color, solid_capstyle="butt",
+                              dash_capstyle="round", linestyle=(0, (0.01, 2.6)) if op.dotted else "-"))
     elif isinstance(op, _Rect):
         fig.add_artist(Rectangle((fx(op.x), fy(op.y + op.h)), op.w / PAGE_W, op.h / PAGE_H,
                                  transform=fig.transFigure, facecolor=op.face,
@@ -638,12 +857,13 @@ def render_pdf(doc: Document, path: str | os.PathLike) -> int:
     int
         The number of pages.
     """
-    pages = _Flow().place_all(_runs(doc))
-    total = len(pages)
+    flow = _layout(_runs(doc))
+    total = len(flow.pages)
     with matplotlib.rc_context({"pdf.fonttype": 42, "pdf.compression": 6}):
         with atomic_path(path) as temp:
             with PdfPages(temp, metadata=_metadata(doc)) as pdf:
-                for number, ops in enumerate(pages, start=1):
+                for number, ops in enumerate(flow.pages, start=1):
+                    ops = [op.resolved(flow.anchors) if isinstance(op, _PageRef) else op for op in ops]
                     fig = _draw_page(_furniture(doc, number, total) + ops)
                     pdf.savefig(fig)
     return total

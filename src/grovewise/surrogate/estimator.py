@@ -68,6 +68,9 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         Routing rows of the program: per (point, node, side) or per (point, leaf, ancestor).
     threads : int or None, default=None
         HiGHS threads.
+    prove : bool, default=True
+        Prove a bound on every training row for the certificate (``bound_``, ``proof_``);
+        False leaves it out, for a re-fit that only needs the tree (the stability step).
 
     Categorical features (``fit(..., category_order=...)``, see :mod:`.categories`): the data
     keeps category codes in such a column; the estimator replaces each code by its
@@ -129,7 +132,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
 
     def __init__(self, depth=2, max_features_per_split=None, alpha=0.0, min_leaf_size=1,
                  time_limit=30.0, random_state=None, *, node_limit=None, mip_gap=None,
-                 proximity_penalty=None, sample_size=None, routing="node", threads=None):
+                 proximity_penalty=None, sample_size=None, routing="node", threads=None,
+                 prove=True):
         self.depth = depth
         self.max_features_per_split = max_features_per_split
         self.alpha = alpha
@@ -142,6 +146,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         self.sample_size = sample_size
         self.routing = routing
         self.threads = threads
+        self.prove = prove
 
     # ------------------------------------------------------------------ checks
     def _check_params(self) -> None:
@@ -274,7 +279,8 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             time_limit=float(self.time_limit), node_limit=self.node_limit, mip_gap=self.mip_gap,
             seed=seed, sample_size=self.sample_size, routing=self.routing,
             proximity_penalty=self.proximity_penalty, threads=self.threads,
-            mps_path=None if mps_path is None else str(mps_path), started=started, solo=solo)
+            mps_path=None if mps_path is None else str(mps_path), started=started, solo=solo,
+            prove=bool(self.prove))
         hard = pairs if self.proximity_penalty is None else None
         soft = pairs if self.proximity_penalty is not None else None
         res = run_pipeline(Xk, yk, wk, len(self.classes_), scaling, st, must_link=hard,

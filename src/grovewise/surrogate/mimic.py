@@ -42,7 +42,7 @@ READABLE_DEFAULTS = {"max_features_per_split": 2, "alpha": 1e-4}
 USAGE_FLOOR = 0.01
 _ESTIMATOR_OPTIONS = {"max_features_per_split", "alpha", "min_leaf_size", "time_limit",
                       "random_state", "node_limit", "mip_gap", "proximity_penalty",
-                      "sample_size", "routing", "threads"}
+                      "sample_size", "routing", "threads", "prove"}
 # Training rows among which must-link pairs are looked for: pairs of rows cost far more than
 # rows, and the program sees a sample of a few thousand points anyway.
 PROXIMITY_ROWS = 3_000

@@ -72,6 +72,7 @@ class PipelineSettings:
     # tree is axis-aligned anyway).
     solo: np.ndarray | None = None
     proof_share: float = 0.2
+    prove: bool = True  # False: no bound is proved (a re-fit that only needs the tree)
     axis_share: float = 0.15
     # above this many rows, the exact axis-aligned tree is searched on the search rows
     axis_rows: int = 50_000
@@ -315,7 +316,7 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
 
     # the proof: a bound for every tree of the class, on every training row
     proof = None
-    if n_classes > 1 and not _stop(cancel):
+    if st.prove and n_classes > 1 and not _stop(cancel):
         s0 = time.perf_counter()
         emit("proof", "proving a bound for every tree of this class on every training row")
         proof = prove(Xs, y, wn, n_classes, st.depth, st.admissible, st.max_features, st.solo,

@@ -363,6 +363,10 @@ class AnatomyPage(Page):
             if self._filled_for is not r.forest:
                 self.flag_table.fill(names, dict(r.settings.flags))
                 self._filled_for = r.forest
+        saved = getattr(r, "second_model", None) if r is not None else None
+        if saved is not None and self.comparison is not saved.comparison:
+            self.comparison = saved.comparison
+            self._drawn_for = None  # draw the comparison with the rest
         for v in self.views.values():
             v.setVisible(has and (v is not self.views["comparison"] or self.comparison is not None))
         if has and self._drawn_for is not r.anatomy:
@@ -497,7 +501,9 @@ class AnatomyPage(Page):
             self.compare_with(path)
 
     def compare_with(self, path, trusted: bool = False) -> bool:
-        """Load ``path`` in a worker and show how it differs from the reviewed model."""
+        """Load ``path`` in a worker and show how it differs from the reviewed model; it
+        becomes the review's second model (saved, reported and re-checked with it)."""
+        self._second_path = Path(path)
         if self.window_.runner.busy:
             self.window_.say("Wait for the running step before opening a second model.")
             return False
@@ -526,6 +532,7 @@ class AnatomyPage(Page):
 
     def _compared(self, cmp) -> None:
         self.comparison = cmp
+        self._record_second_model()
         view = self.views["comparison"]
         view.setVisible(True)
         flags = self.flags()
@@ -533,6 +540,24 @@ class AnatomyPage(Page):
                         lambda fig: comparison_hover(cmp, flags, fig))
         self.window_.say(f"Compared with {cmp.labels[1]}: appeared {', '.join(cmp.appeared) or 'none'}; "
                          f"vanished {', '.join(cmp.vanished) or 'none'}.")
+
+    def _record_second_model(self) -> None:
+        """Make the compared file the review's second model; once the surrogate has run, the
+        second_model step adds the two models' agreement and what the surrogate explains."""
+        r, path = self.review, getattr(self, "_second_path", None)
+        if r is None or path is None:
+            return
+        if self.window_.runner.busy:  # the comparison's own worker is still closing
+            QTimer.singleShot(50, self._record_second_model)
+            return
+        r.inputs.second_model = path
+        r.results.pop("second_model", None)
+        self.window_.dirty = True
+        if r.done("surrogate"):
+            self.window_.run_steps(["second_model"])
+        else:
+            self.window_.say(f"{path.name} is the review's second model: its agreement with "
+                             "the first is measured once the surrogate has run.")
 
     def status_note(self) -> str:
         r = self.review

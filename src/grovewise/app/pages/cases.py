@@ -854,7 +854,43 @@ class CasesPage(Page):
         g = int(c.greedy[row])
         out.append(f"<p>The surrogate {agree} the ensemble. The greedy tree says "
                    f"{html.escape(str(cls[g]))}.</p>")
+        out.extend(self._groups_of(row))
         return "".join(out)
+
+    def _groups_of(self, row: int) -> list[str]:
+        """The row's group of each protected feature and group column, with the surrogate's
+        fidelity in that group (the Surrogate page's "Faithfulness per group")."""
+        r = self.review
+        res = r.surrogate
+        names = list(r.forest.feature_names)
+        categories = getattr(r.forest, "categories", None) or {}
+        part = "holdout" if res.holdout_rows.size else "training"
+        lines = []
+        for gf in getattr(res, "group_fidelity", None) or []:
+            if gf.name in names:
+                j = names.index(gf.name)
+                cats = categories.get(j)
+                group = gf.group_of(self.model.X[row, j],
+                                    None if cats is None else dict(enumerate(cats)))
+            else:  # a group column: the data's rows, then the holdout file's
+                values, k = r.data.group_values.get(gf.name), row
+                if values is not None and k >= len(values) and r.holdout_data is not None:
+                    values, k = r.holdout_data.group_values.get(gf.name), k - len(values)
+                group = gf.group_of(values[k]) if values is not None and k < len(values) \
+                    else None
+            if group is None or "surrogate" not in group.fidelity:
+                continue
+            low, high = group.interval["surrogate"]
+            small = (f" <span style='color:{theme.CAUTION}'>too small to judge</span>"
+                     if group.too_small else "")
+            lines.append(f"<p style='margin:2px 0 2px 12px'>{html.escape(gf.name)}: "
+                         f"<b>{html.escape(group.label)}</b>, fidelity "
+                         f"{group.fidelity['surrogate']:.1%} ({low:.1%} to {high:.1%}) on "
+                         f"{group.rows:,} rows{small}</p>")
+        if not lines:
+            return []
+        return [f"<p style='margin-bottom:2px'><b>Its groups</b> (the surrogate's fidelity on "
+                f"each group's {part} rows, with its 95% interval)</p>", *lines]
 
     def prepare_capture(self) -> None:
         c = self.review.cases if self.review is not None else None

@@ -49,6 +49,61 @@ def short_hash(h: str | None) -> str:
     return "" if not h else f"{h[:16]}…{h[-8:]}"
 
 
+class ProblemPanel(QFrame):
+    """The problems met while opening files, listed on the Intake page itself: what went
+    wrong (the same words the command line prints) and what to do, with a way to open other
+    files at once. It never blocks the window: every page and menu stays usable."""
+
+    def __init__(self, window) -> None:
+        super().__init__()
+        self.window_ = window
+        self.setObjectName("problemPanel")
+        self.setStyleSheet("QFrame#problemPanel { background: #f7e9e9; border: 1px solid "
+                           "#c98c8c; border-left: 5px solid #9b2c2c; border-radius: 4px; }")
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(14, 10, 14, 10)
+        lay.setSpacing(6)
+        self.title = QLabel()
+        self.title.setStyleSheet("font-size: 14px; font-weight: 600; color: #7a1f1f; "
+                                 "border: none;")
+        self.message = self._text()
+        self.advice = self._text()
+        self.advice.setStyleSheet("color: #5f2a2a; border: none;")
+        lay.addWidget(self.title)
+        lay.addWidget(self.message)
+        lay.addWidget(self.advice)
+        row = QHBoxLayout()
+        self.open_button = QPushButton("Open other files…")
+        self.open_button.clicked.connect(lambda: self.window_.ask_open())
+        self.dismiss_button = QPushButton("Dismiss")
+        self.dismiss_button.clicked.connect(self.clear)
+        row.addWidget(self.open_button)
+        row.addWidget(self.dismiss_button)
+        row.addStretch(1)
+        lay.addLayout(row)
+        self.shown: list = []  # the problems of this attempt to open files, latest last
+        self.setVisible(False)
+
+    @staticmethod
+    def _text() -> QLabel:
+        label = wrapped("")  # selectable: the message can be copied into a report of it
+        label.setStyleSheet("border: none;")
+        return label
+
+    def show_problem(self, problem) -> None:
+        """List ``problem`` (a :class:`~..problems.Problem`) as the latest one."""
+        self.shown.append(problem)
+        self.title.setText(problem.title)
+        self.message.setText(problem.message)
+        self.advice.setText(problem.advice)
+        self.advice.setVisible(bool(problem.advice))
+        self.setVisible(True)
+
+    def clear(self) -> None:
+        self.shown = []
+        self.setVisible(False)
+
+
 class IntakePage(Page):
     key = "intake"
     title = "Intake"
@@ -58,6 +113,8 @@ class IntakePage(Page):
 
     def __init__(self, window) -> None:
         super().__init__(window)
+        self.problem_panel = ProblemPanel(window)
+        self.body_layout.addWidget(self.problem_panel)
         self.empty = self._empty_state()
         self.body_layout.addWidget(self.empty)
         self.grid = QGridLayout()
@@ -149,8 +206,11 @@ class IntakePage(Page):
                 files.append(("  sha256", short_hash(res.holdout_sha256)))
         self.files_kv.set_rows(files)
         if res is None:
-            note = ("Intake has not run yet: press Run intake (Ctrl+R)."
-                    if not self.window_.runner.busy else "Intake is running…")
+            note = ("Intake is running…" if self.window_.runner.busy else
+                    "Intake stopped on the problem shown above: open other files, or correct "
+                    "this one and press Run intake (Ctrl+R)." if "intake" in
+                    self.window_.failed_steps else
+                    "Intake has not run yet: press Run intake (Ctrl+R).")
             self.safety_verdict.set("neutral", note)
             for c in (self.exact, self.columns, self.model, self.split):
                 c.setVisible(False)

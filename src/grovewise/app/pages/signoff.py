@@ -1,39 +1,25 @@
-"""Sign-off: who reviewed, the decision and its conditions, notes, the cautions, a preview of
-the report, and its export as HTML or PDF."""
+"""Sign-off: who reviewed, the decision and its conditions, notes, the cautions, the model's
+own performance on the review data, a preview of the report (the real PDF), and its export
+as HTML or PDF."""
 
 from __future__ import annotations
 
-import base64
 import datetime as _dt
 from pathlib import Path
 
-from PySide6.QtCore import QByteArray, QUrl
-from PySide6.QtGui import QImage, QTextDocument
 from PySide6.QtWidgets import (QButtonGroup, QFileDialog, QFormLayout, QHBoxLayout, QLineEdit,
-                               QPlainTextEdit, QPushButton, QRadioButton, QTextBrowser,
-                               QVBoxLayout)
+                               QPlainTextEdit, QPushButton, QRadioButton, QVBoxLayout)
 
 from ...errors import GrovewiseError
-from ...review import DECISION_LABELS, DECISIONS, STEPS, Reviewer
-from .. import report_bridge
-from ..widgets import CautionBox, Card, KeyValues, wrapped
+from ...report.figures_performance import reliability_figure
+from ...review import DECISION_LABELS, DECISIONS, REPORT_STEPS, Reviewer
+from .. import report_bridge, theme
+from ..widgets import (CautionBox, Card, FigureView, KeyValues, PdfPreview, fill_table,
+                       readonly_table, wrapped)
 from ..workers import LatestCall
 from .base import Page
 
-
-class ReportPreview(QTextBrowser):
-    """A QTextBrowser that shows the report's embedded (``data:``) images."""
-
-    def loadResource(self, kind: int, url: QUrl):
-        text = url.toString()
-        if kind == QTextDocument.ResourceType.ImageResource.value and text.startswith("data:"):
-            _, _, payload = text.partition(",")
-            img = QImage()
-            img.loadFromData(QByteArray(base64.b64decode(payload)))
-            if img.width() > 900:
-                img = img.scaledToWidth(900)
-            return img
-        return super().loadResource(kind, url)
+PREVIEW_HEIGHT = 760  # the PDF's pages scroll inside it
 
 
 class SignoffPage(Page):
@@ -106,20 +92,57 @@ class SignoffPage(Page):
         right.addStretch(1)
         row.addLayout(right, 1)
         self.body_layout.addLayout(row)
-        self.preview_card = Card("Preview of the report")
+        self.body_layout.addWidget(self._performance_card())
+        self.preview_card = Card("Preview of the report", note="The PDF itself, as Export "
+                                 "PDF writes it, with the fields above as they stand.")
         prow = QHBoxLayout()
         self.preview_button = QPushButton("Update the preview")
         self.preview_button.clicked.connect(self.update_preview)
         prow.addWidget(self.preview_button)
         prow.addStretch(1)
         self.preview_card.body.addLayout(prow)
-        self.preview = ReportPreview()
-        self.preview.setOpenLinks(False)
-        self.preview.setMinimumHeight(460)
+        self.preview = PdfPreview()
+        self.preview.view.setFixedHeight(PREVIEW_HEIGHT)  # hidden (no height) until a PDF
+        self.preview.watch(window)  # its temporary files go when the window closes
         self.preview_card.body.addWidget(self.preview)
         self.body_layout.addWidget(self.preview_card)
         self.composer = LatestCall(self, exclusive=False)  # the report for the preview
         self.exported: list[Path] = []
+
+    def _performance_card(self) -> Card:
+        """The model's own performance on the review data (when it has the target)."""
+        card = Card("The model's own performance")
+        self.performance_card = card
+        self._performance_for = None  # the result shown
+        self.performance_text = wrapped("")
+        card.body.addWidget(self.performance_text)
+        self.performance_parts = QHBoxLayout()
+        self.performance_parts.setSpacing(16)
+        left = QVBoxLayout()
+        left.addWidget(wrapped("Confusion matrix at the model's own rule (the class of largest "
+                               "probability), review data", muted=True))
+        self.confusion = readonly_table(["true class"])
+        left.addWidget(self.confusion)
+        self.performance_numbers = KeyValues()
+        left.addWidget(self.performance_numbers)
+        self.reliability_note = wrapped("", muted=True)
+        left.addWidget(self.reliability_note)
+        self.reliability = readonly_table(["from", "to", "rows", "mean predicted",
+                                           "observed share"])
+        left.addWidget(self.reliability)
+        left.addStretch(1)
+        self.performance_parts.addLayout(left, 0)
+        right = QVBoxLayout()
+        self.reliability_view = FigureView()
+        self.reliability_view.setMaximumWidth(480)
+        right.addWidget(self.reliability_view)
+        right.addStretch(1)
+        self.performance_parts.addLayout(right, 1)
+        card.body.addLayout(self.performance_parts)
+        self.performance_caution = wrapped("")
+        self.performance_caution.setStyleSheet(f"color: {theme.CAUTION};")
+        card.body.addWidget(self.performance_caution)
+        return card
 
     # ------------------------------------------------------------------ fields
     def reset(self) -> None:
@@ -130,8 +153,10 @@ class SignoffPage(Page):
         self.decisions.get(rv.decision, self.decisions["pending"]).setChecked(True)
         self.conditions.setPlainText(rv.conditions)
         self.notes.setPlainText(rv.notes)
-        self.preview.setHtml("")
         self.composer.drop()
+        self.preview.clear()
+        self._performance_for = None
+        self.reliability_view.clear()
 
     def _decision_changed(self) -> None:
         d = self.decision()
@@ -177,18 +202,25 @@ class SignoffPage(Page):
         r = self.review
         has = r is not None
         idle = not self.window_.runner.busy
-        done = [s for s in STEPS if has and r.done(s)]
-        missing = [s for s in STEPS if s not in done]
+        done = [s for s in REPORT_STEPS if has and r.done(s)]
+        missing = [s for s in REPORT_STEPS if s not in done]
         self.record_button.setEnabled(has and idle)
         for w in (self.export_html, self.export_pdf, self.export_both, self.preview_button):
             w.setEnabled(has and idle and not missing and report_bridge.available())
         if not has:
             self.message.setText("Open a model and its data first.")
             self.summary.set_rows([])
+            self._show_performance()
             return
         self.message.setText("Every step has run: the report can be written." if not missing else
                              f"The report needs every step; not run yet: {', '.join(missing)} "
                              "(Steps ▸ Run every step, Ctrl+Shift+R).")
+        if self.preview.path is None and not self.composer.busy:
+            self.preview.set_message(
+                "The report composer is not in this version of Grovewise yet; the preview "
+                "appears here when it is." if not report_bridge.available() else
+                "The preview of the report's PDF appears here once every step has run."
+                if missing else "Press Update the preview to see the report's PDF here.")
         rv = r.reviewer
         self.signed.setText(f"Recorded {rv.signed_at}: {DECISION_LABELS.get(rv.decision, rv.decision)}"
                             if rv.signed_at else "Not recorded yet.")
@@ -205,6 +237,41 @@ class SignoffPage(Page):
         rows.append(("Report", "HTML and PDF" if report_bridge.available() else
                      "the report composer is not in this version yet"))
         self.summary.set_rows(rows)
+        self._show_performance()
+
+    def _show_performance(self) -> None:
+        """The performance the intake step measured, in the report's words; one line when
+        there is none (no target, or no intake yet)."""
+        r = self.review
+        intake = r.intake if r is not None else None
+        perf = getattr(intake, "performance", None)
+        if perf is not None and self._performance_for is perf:
+            return
+        self._performance_for = perf
+        shown = perf is not None
+        for part in (self.confusion, self.performance_numbers, self.reliability_view,
+                     self.reliability_note, self.reliability, self.performance_caution):
+            part.setVisible(shown)
+        if not shown:
+            self.reliability_view.clear()
+            self.performance_text.setText(_no_performance(r))
+            return
+        lines = [line for line in perf.text().splitlines() if line != perf.caution]
+        self.performance_text.setText("\n".join(lines))
+        self.performance_caution.setText(perf.caution)
+        classes = list(perf.classes)
+        self.confusion.setColumnCount(1 + len(classes))
+        self.confusion.setHorizontalHeaderLabels(["true class"]
+                                                 + [f"predicted {c}" for c in classes])
+        fill_table(self.confusion, [[c] + [f"{int(v):,}" for v in row]
+                                    for c, row in zip(classes, perf.confusion)],
+                   right=range(1, 1 + len(classes)))
+        self.performance_numbers.set_rows([("Brier score", perf.brier_definition)])
+        self.reliability_note.setText(f"Reliability ({perf.reliability_definition})")
+        fill_table(self.reliability, [[f"{b.lower:.2f}", f"{b.upper:.2f}", f"{b.count:,}",
+                                       f"{b.mean_predicted:.3f}", f"{b.observed_share:.3f}"]
+                                      for b in perf.reliability], right=range(5))
+        self.reliability_view.show_built(lambda: reliability_figure(perf))
 
     def set_busy(self, busy: bool) -> None:
         super().set_busy(busy)
@@ -212,32 +279,36 @@ class SignoffPage(Page):
 
     # ------------------------------------------------------------------ preview and export
     def ready(self) -> bool:
-        return self.review is not None and all(self.review.done(s) for s in STEPS)
+        return self.review is not None and all(self.review.done(s) for s in REPORT_STEPS)
 
     def update_preview(self) -> bool:
-        """Compose the report for the preview (in the page's worker: its figures take
-        seconds on a large review); the preview shows it when ready. False if it cannot."""
+        """Write the report's PDF for the preview (in the page's worker: it takes seconds);
+        the preview shows it when written. False if it cannot."""
         if not self.ready():
             return False
         if not report_bridge.available():
             self._preview_ready(None)
             return False
         self.store_fields()
-        self.preview.setPlainText("Composing the preview…")
-        self.composer.request(report_bridge.preview_html, self.review, done=self._preview_ready,
-                              failed=self._preview_failed)
+        self.preview.set_message("Writing the report's PDF for the preview…")
+        self.composer.request(report_bridge.preview_pdf, self.review, self.preview.new_path(),
+                              done=self._preview_ready, failed=self._preview_failed)
         return True
 
-    def _preview_ready(self, text: str | None) -> None:
-        if text is None:
-            self.preview.setPlainText("The report composer is not in this version of Grovewise "
-                                      "yet; the preview appears here when it is.")
+    def _preview_ready(self, path: Path | None) -> None:
+        if path is None:
+            self.preview.clear("The report composer is not in this version of Grovewise yet; "
+                               "the preview appears here when it is.")
             return
-        self.preview.setHtml(text)
+        if self.preview.show_file(path):
+            n = self.preview.page_count()
+            self.preview.set_message(f"{n} page{'s' if n != 1 else ''}, written "
+                                     f"{_dt.datetime.now().strftime('%H:%M:%S')}; press "
+                                     "Update the preview after changing the fields above.")
 
     def _preview_failed(self, exc) -> None:
-        self.preview.setPlainText("")
-        self.window_.show_problem(exc, "composing the report preview")
+        self.preview.clear("The preview could not be written.")
+        self.window_.show_problem(exc, "writing the report preview")
 
     def ask_export(self, formats) -> None:
         folder = QFileDialog.getExistingDirectory(self, "Export the report into a folder")
@@ -265,8 +336,12 @@ class SignoffPage(Page):
         self.exported = list(files)
         self.window_.say("Report written: " + ", ".join(str(f) for f in self.exported))
 
+    def preparing(self) -> bool:
+        return super().preparing() or self.preview.rendering
+
     def prepare_capture(self) -> None:
-        if report_bridge.available() and self.ready() and not self.preview.toPlainText():
+        if report_bridge.available() and self.ready() and self.preview.path is None \
+                and not self.composer.busy:
             self.update_preview()
 
     def status_note(self) -> str:
@@ -278,3 +353,14 @@ class SignoffPage(Page):
 
 def _pct(v) -> str:
     return "—" if v is None else f"{100 * v:.1f}%"
+
+
+def _no_performance(review) -> str:
+    """Why the model's own performance is not shown, in one line."""
+    if review is None or review.intake is None:
+        return "Shown once the model and its data are open (it needs the data's target column)."
+    if not review.inputs.target:
+        return ("Not measured: the review data has no target column (name it when opening the "
+                "data to see the model's AUC, Brier score, reliability and confusion matrix).")
+    notes = [n for n in getattr(review.data, "notes", []) if "performance" in n]
+    return notes[0] if notes else "Not measured on this review's data."

@@ -1,6 +1,7 @@
 """Surrogate: settings, the solve with its live incumbent and bound, the tree and its rules,
-fidelity beside the greedy tree, the certificate, exports, and (once the cases step has run)
-the feature pairs the ensemble combines most beside those the surrogate puts in one split."""
+fidelity beside the greedy tree (over all rows and per group of every protected feature and
+group column), the certificate, exports, and (once the cases step has run) the feature pairs
+the ensemble combines most beside those the surrogate puts in one split."""
 
 from __future__ import annotations
 
@@ -17,7 +18,8 @@ from ...report.content import certificate_line, fidelity_text
 from ...report.figures_surrogate import surrogate_tree_figure
 from ...weak_spots import weak_spots
 from ..tree_figure import cart_tree_figure
-from ..widgets import CautionBox, Card, FigureView, KeyValues, Verdict, wrapped
+from ..widgets import (CautionBox, Card, FigureView, KeyValues, Verdict, fill_table,
+                       readonly_table, wrapped)
 from .base import Page
 
 STATUS_WORDS = {
@@ -56,6 +58,12 @@ def greedy_figure(res):
 
 def pct(v) -> str:
     return "—" if v is None else f"{100 * v:.1f}%"
+
+
+def group_fidelity_text(group, tree: str) -> str:
+    """A group's fidelity for ``tree`` with its 95% interval, as the report writes it."""
+    low, high = group.interval[tree]
+    return f"{pct(group.fidelity[tree])} ({pct(low)} to {pct(high)})"
 
 
 def num(v, spec: str = ".4g") -> str:
@@ -126,6 +134,37 @@ class SurrogatePage(Page):
         grid.setColumnStretch(1, 1)
         self.result_card.body.addLayout(grid)
         self.body_layout.addWidget(self.result_card)
+        self.groups_card = Card("Faithfulness per group")
+        self.groups_note = wrapped("", muted=True)
+        self.groups_card.body.addWidget(self.groups_note)
+        self.groups_box = QVBoxLayout()
+        self.groups_box.setSpacing(6)
+        self.groups_card.body.addLayout(self.groups_box)
+        self.group_tables: dict[str, QTableWidget] = {}  # per grouping (column name)
+        self.group_sentences: dict[str, object] = {}
+        self.body_layout.addWidget(self.groups_card)
+        self.stability_card = Card("Stability of the rules", note=(
+            "The surrogate and the greedy tree fitted again on seeded bootstrap resamples of "
+            "the training rows: how often each node's features recur, how much the re-fitted "
+            "trees agree, and the spread of their fidelity. Cancel (Esc) stops it."))
+        self.stability_text = wrapped("")
+        self.stability_card.body.addWidget(self.stability_text)
+        self.stability_button = QPushButton("Measure stability")
+        self.stability_button.setToolTip("Re-fit both trees on the bootstrap resamples (the "
+                                         "setting stability_resamples, 10 by default)")
+        self.stability_button.clicked.connect(lambda: self.window_.run_steps(["stability"]))
+        self.stability_card.body.addWidget(self.stability_button, 0, Qt.AlignmentFlag.AlignLeft)
+        self.stability_tables = {}
+        self.stability_titles = {}
+        for name, title in (("surrogate", "The surrogate, per node"),
+                            ("greedy", "The greedy tree, per node")):
+            table = readonly_table(["node", "the review's features", "recur in",
+                                    "most common over the re-fits", "its share"])
+            self.stability_titles[name] = wrapped(f"<b>{title}</b>")
+            self.stability_tables[name] = table
+            self.stability_card.body.addWidget(self.stability_titles[name])
+            self.stability_card.body.addWidget(table)
+        self.body_layout.addWidget(self.stability_card)
         self.weak_card = Card("Weak spots", note="Where the figures above say less than they "
                               "seem: leaves with few or no holdout rows or a low 95% interval, "
                               "a train-holdout gap, data the model fits almost perfectly.")
@@ -335,8 +374,9 @@ class SurrogatePage(Page):
             ("Kept out (forbidden on the Anatomy page): " + ", ".join(forbidden)) if forbidden
             else "No feature is forbidden (flag them on the Anatomy page).")
         res = r.surrogate if r is not None else None
-        for w in (self.result_card, self.weak_card, self.tree_card, self.greedy_card,
-                  self.rules_card, self.stages_card, self.pairs_card):
+        for w in (self.result_card, self.groups_card, self.stability_card, self.weak_card,
+                  self.tree_card,
+                  self.greedy_card, self.rules_card, self.stages_card, self.pairs_card):
             w.setVisible(res is not None)
         if r is None:
             self.live_text.setText("Open a model and its data first.")
@@ -348,10 +388,12 @@ class SurrogatePage(Page):
             return
         self._show_weak_spots()
         self._show_pairs()
+        self._show_stability()
         if self._drawn_for is res:
             return
         self._drawn_for = res
         self._show_result(res)
+        self._show_groups(res)
         if not self.points:
             self._replay(res)
         else:
@@ -417,6 +459,70 @@ class SurrogatePage(Page):
         status = res.certificate["status"]
         self.live_text.setText(f"Finished: {STATUS_WORDS.get(status, status)}. The chart shows "
                                "the candidates recorded with the review.")
+
+    def _show_stability(self) -> None:
+        """The stability step's finding per tree, in words and per node (the report's)."""
+        r = self.review
+        stab = r.stability
+        busy = self.window_.runner.busy
+        self.stability_button.setEnabled(not busy and r.settings.stability_resamples > 0)
+        for name, table in self.stability_tables.items():
+            table.setVisible(stab is not None)
+            self.stability_titles[name].setVisible(stab is not None)
+            if stab is not None:
+                fill_table(table, stab.to_rows(name), right=(2, 4))
+        if stab is not None:
+            self.stability_text.setText("<br><br>".join(
+                stab.sentence(name) for name in ("surrogate", "greedy")))
+        elif r.settings.stability_resamples == 0:
+            self.stability_text.setText("Left out: the setting stability_resamples is 0.")
+        else:
+            self.stability_text.setText(
+                f"Not measured yet: press Measure stability to re-fit both trees on "
+                f"{r.settings.stability_resamples} bootstrap resamples, "
+                f"{r.settings.stability_seconds():g} s each.")
+
+    def _show_groups(self, res) -> None:
+        """Per protected feature and group column: each group's fidelity with its interval,
+        the groups too small to judge, and the largest gap in words (the report's table)."""
+        while self.groups_box.count():
+            item = self.groups_box.takeAt(0)
+            if item.widget() is not None:
+                item.widget().deleteLater()
+        self.group_tables, self.group_sentences = {}, {}
+        found = getattr(res, "group_fidelity", None) or []
+        st = self.review.settings
+        wanted = [f for f, k in st.flags.items() if k == "protected"] + list(st.group_columns)
+        later = [name for name in dict.fromkeys(wanted) if name not in {g.name for g in found}]
+        if not found:
+            self.groups_note.setText(
+                "No feature is flagged protected and no group column is named, so there are "
+                "no groups to compare. Flag a feature protected on the Anatomy page and solve "
+                "again to see the trees' fidelity for each of its groups." if not later else
+                f"Flagged or named after this solve: {', '.join(later)}; solve again to see "
+                "the trees' fidelity for each of their groups.")
+            return
+        part = "holdout" if res.holdout_rows.size else "training"
+        self.groups_note.setText(
+            f"Fidelity (unweighted) on the {part} rows of each group, with its 95% Wilson "
+            f"interval; a group of fewer than {found[0].min_rows} rows is marked too small to "
+            "judge and left out of the gaps."
+            + (f" Flagged or named after this solve: {', '.join(later)}; solve again to see "
+               "their groups." if later else ""))
+        for gf in found:
+            trees = [t for t in ("surrogate", "greedy") if t in gf.trees]
+            title = wrapped(f"<b>{gf.name}</b> ({gf.grouping})")
+            sentence = wrapped(gf.sentence())
+            table = readonly_table(["group", "rows"]
+                                   + [f"{t} fidelity (95% interval)" for t in trees] + [""])
+            fill_table(table, [[g.label, f"{g.rows:,}"]
+                               + [group_fidelity_text(g, t) for t in trees]
+                               + ["too small to judge" if g.too_small else ""]
+                               for g in gf.groups], right=(1,))
+            for w in (title, sentence, table):
+                self.groups_box.addWidget(w)
+            self.group_tables[gf.name] = table
+            self.group_sentences[gf.name] = sentence
 
     def _show_result(self, res) -> None:
         est, cert = res.surrogate, res.certificate
