@@ -14,7 +14,7 @@ import warnings
 from collections.abc import Sequence
 from pathlib import Path
 
-from .errors import GrovewiseError
+from .errors import GrovewiseError, SettingError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 3
@@ -62,6 +62,8 @@ def cmd_anatomy(args) -> int:
     _warn_if_trusted(args)
     # every input checked before the first figure is drawn
     dpi, formats = check_dpi(args.dpi), check_formats(tuple(args.formats.split(",")))
+    if not 0 <= args.seed < 2**32:  # the range numpy's and scikit-learn's seeds take
+        raise SettingError(f"--seed {args.seed}: give a whole number from 0 to {2**32 - 1}.")
     check_out_folder(args.out)
     _check_files(args.model, args.data)
     forest = check_model(args.model, args.trust)

@@ -14,7 +14,7 @@ from functools import cached_property
 import numpy as np
 from scipy.special import expit
 
-from .errors import DataError
+from .errors import DataError, ModelFileError, UnsupportedModelError
 from .traversal import decide_many, leaf_nodes
 
 # How a split node compares a feature value with its threshold (the library's own rule).
@@ -22,6 +22,8 @@ COMPARE_LE_FLOAT32 = "le_float32"  # scikit-learn trees: float32(x) <= threshold
 COMPARE_LE_FLOAT64 = "le_float64"  # scikit-learn histogram boosting: x <= threshold
 COMPARE_LT_FLOAT32 = "lt_float32"  # XGBoost: float32(x) < float32(threshold)
 COMPARES = (COMPARE_LE_FLOAT32, COMPARE_LE_FLOAT64, COMPARE_LT_FLOAT32)
+FLOAT32_COMPARES = (COMPARE_LE_FLOAT32, COMPARE_LT_FLOAT32)
+FLOAT32_MAX = float(np.finfo(np.float32).max)  # 3.4028235e38, IEEE 754 binary32's largest
 
 # How leaf values become class probabilities.
 LINK_MEAN = "mean"  # each leaf holds class probabilities; the ensemble averages them
@@ -111,8 +113,92 @@ class Tree:
         return rule
 
 
+def uncomparable(X: np.ndarray, compare: str | None = None) -> np.ndarray:
+    """Cells no model can compare (infinite values) and, when ``compare`` is a float32 rule,
+    the finite values beyond float32's range as well (the library would make them infinite,
+    or refuse them); a boolean mask shaped like ``X``."""
+    X = np.asarray(X, dtype=np.float64)
+    bad = np.isinf(X)
+    if compare in FLOAT32_COMPARES:
+        bad |= np.abs(X) > FLOAT32_MAX
+    return bad
+
+
+# The largest category code a categorical split may hold (XGBoost's own limit: it reads a
+# value of 2**24 or more as no category), and the most bit words all splits' code sets may
+# take together (each split keeps a bit per code up to its largest: 2**24 words are 128 MB).
+MAX_CATEGORY_CODE = 2**24 - 1
+MAX_CATEGORY_WORDS = 2**24
+# More columns than any table a review reads: a damaged count beyond it would fill the memory
+# with names before anything else could refuse it.
+MAX_FEATURES = 1_000_000
+DAMAGED = "the model is damaged; save it again with its library"
+
+
+def plain_feature_names(n_features: int) -> list[str]:
+    """``x0, x1, ...``: the names of a model's features when it keeps none of its own."""
+    if not 0 <= n_features <= MAX_FEATURES:
+        raise ModelFileError(f"the model says it has {n_features:,} features, more than the "
+                             f"{MAX_FEATURES:,} Grovewise reads; {DAMAGED}.")
+    return [f"x{j}" for j in range(n_features)]
+
+
+def shape_problem(left, right) -> str | None:
+    """Why the child arrays do not form one tree rooted at node 0, or None when they do.
+
+    A tree here: every node has two children or none (-1 both, as every library writes a
+    leaf; XGBoost takes any other negative number for a node); every child is another
+    node, never the root; no node is the child of two nodes (so no node is its own
+    ancestor: a cycle is impossible); every node is reached from the root.
+    """
+    left = np.asarray(left)
+    right = np.asarray(right)
+    n = left.shape[0]
+    if left.ndim != 1 or right.shape != left.shape:
+        return (f"its left and right child lists differ in length ({left.shape[0]} and "
+                f"{right.shape[0]})")
+    if n == 0:
+        return "it has no nodes"
+    below = np.flatnonzero((left < -1) | (right < -1))
+    if below.size:
+        k = int(below[0])
+        return (f"node {k} has child {int(min(left[k], right[k]))}; a leaf's children are -1 "
+                "(a library that reads that as a node reads outside the tree)")
+    inner = left >= 0
+    odd = np.flatnonzero(inner != (right >= 0))
+    if odd.size:
+        k = int(odd[0])
+        return (f"node {k} has one child (left {int(left[k])}, right {int(right[k])}); a node "
+                "has two children or none")
+    kids = np.concatenate([left[inner], right[inner]]).astype(np.int64)
+    parents = np.concatenate([np.flatnonzero(inner)] * 2)
+    beyond = np.flatnonzero(kids >= n)
+    if beyond.size:
+        return (f"node {int(parents[beyond[0]])} has child {int(kids[beyond[0]])}, but the "
+                f"tree has {n} nodes")
+    root = np.flatnonzero(kids == 0)
+    if root.size:
+        return f"node {int(parents[root[0]])} has the root (node 0) as its child: a cycle"
+    twice = np.flatnonzero(np.bincount(kids, minlength=n) > 1)
+    if twice.size:
+        k = int(twice[0])
+        return (f"node {k} is the child of more than one node "
+                f"({', '.join(str(int(q)) for q in parents[kids == k][:3])})")
+    if kids.size != n - 1:
+        lost = np.setdiff1d(np.arange(1, n), kids)
+        return f"node {int(lost[0])} is not reached from the root"
+    return None
+
+
 def node_depths(left: np.ndarray, right: np.ndarray) -> np.ndarray:
-    """Depth of every node of a tree given by child arrays (-1 at leaves), root at 0."""
+    """Depth of every node of a tree given by child arrays (-1 at leaves), root at 0.
+
+    Raises ModelFileError when the arrays are not one tree (:func:`shape_problem`), so a
+    cycle or a child out of range never loops or reads beyond the arrays.
+    """
+    problem = shape_problem(left, right)
+    if problem is not None:
+        raise ModelFileError(f"its nodes do not form a tree: {problem}; {DAMAGED}.")
     depth = np.zeros(left.shape[0], dtype=np.int64)
     frontier = np.array([0], dtype=np.int64)
     level = 0
@@ -181,6 +267,86 @@ class Forest:
         self.feature_names = [str(f) for f in self.feature_names]
         self.categories = {int(j): [str(c) for c in names]
                            for j, names in (self.categories or {}).items()}
+        self._check_structure()
+
+    def _check_structure(self) -> None:
+        """Refuse trees the walks cannot follow safely (the compiled walk checks no index):
+        a node list that is not one tree, a split on a feature the model does not have, an
+        output or class the model does not have, a NaN threshold or a leaf value that is not
+        a finite number, category codes out of range. Raises ModelFileError naming the tree
+        and the node; a loader that knows the file adds its name."""
+        if not self.trees:
+            raise ModelFileError(f"the model has no trees; {DAMAGED}.")
+        if not 1 <= self.n_features <= MAX_FEATURES:
+            raise ModelFileError(f"the model has {self.n_features:,} features; {DAMAGED}.")
+        if self.n_classes < 2:
+            raise UnsupportedModelError(f"the model has {self.n_classes} class(es); Grovewise "
+                                        "reviews classifiers of two classes or more.")
+        if self.link == LINK_LOGISTIC and self.n_classes != 2:
+            raise ModelFileError(f"the model has one output (a logistic link) but "
+                                 f"{self.n_classes} classes; {DAMAGED}.")
+        width = self.n_classes if self.link == LINK_MEAN else 1
+        if self.link != LINK_MEAN and (self.base_score.shape[0] != self.n_outputs
+                                       or not np.isfinite(self.base_score).all()):
+            raise ModelFileError(f"the model's starting score {self.base_score.tolist()} is not "
+                                 f"{self.n_outputs} finite number(s); {DAMAGED}.")
+        words = 0
+        for t, tree in enumerate(self.trees):
+            problem = self._tree_problem(tree, width)
+            if problem is not None:
+                raise ModelFileError(f"tree {t}: {problem}; {DAMAGED}.")
+            for k, split in (tree.categorical or {}).items():
+                codes = np.concatenate([np.asarray(split.left).ravel(),
+                                        np.asarray(split.right).ravel()])
+                if codes.size and (codes.min() < 0 or codes.max() > MAX_CATEGORY_CODE):
+                    odd = int(codes.min() if codes.min() < 0 else codes.max())
+                    raise ModelFileError(f"tree {t}, node {k}: a categorical split holds the "
+                                         f"code {odd}, outside 0 to {MAX_CATEGORY_CODE}; "
+                                         f"{DAMAGED}.")
+                words += int(codes.max()) // 64 + 1 if codes.size else 1
+        if words > MAX_CATEGORY_WORDS:
+            raise UnsupportedModelError(
+                f"the model's categorical splits need {words * 16 // 2**20} MB for their "
+                f"category sets, more than the {MAX_CATEGORY_WORDS * 16 // 2**20} MB Grovewise "
+                "holds; it reviews models whose categories are codes below a few thousand.")
+
+    def _tree_problem(self, tree: Tree, width: int) -> str | None:
+        n = tree.n_nodes
+        lengths = {name: np.shape(getattr(tree, name))[:1] for name in (
+            "threshold", "left", "right", "missing_left", "depth", "gain", "cover", "value")}
+        short = [name for name, shape in lengths.items() if shape != (n,)]
+        if tree.feature.ndim != 1 or short:
+            return f"its node lists differ in length ({', '.join(short)} against feature)"
+        problem = shape_problem(tree.left, tree.right)
+        if problem is not None:
+            return problem
+        split = tree.left >= 0
+        used = tree.feature[split]
+        bad = np.flatnonzero((used < 0) | (used >= self.n_features))
+        if bad.size:
+            k = int(np.flatnonzero(split)[bad[0]])
+            return (f"node {k} splits on feature {int(tree.feature[k])}, but the model has "
+                    f"{self.n_features} features")
+        value = np.asarray(tree.value)
+        if value.ndim != 2 or value.shape[1] < width:
+            return f"its node values have shape {value.shape}, not ({n}, {width})"
+        leaves = np.flatnonzero(~split)
+        wrong = leaves[~np.isfinite(value[leaves, :width]).all(axis=1)]
+        if wrong.size:
+            return (f"leaf {int(wrong[0])} holds {value[wrong[0], :width].tolist()}, not "
+                    "finite numbers")
+        cats = [int(k) for k in (tree.categorical or {})]
+        odd = [k for k in cats if not 0 <= k < n or not split[k]]
+        if odd:
+            return f"node {odd[0]} holds a categorical split but is not a split node"
+        numeric = split.copy()
+        numeric[cats] = False
+        nan = np.flatnonzero(numeric & np.isnan(tree.threshold))
+        if nan.size:
+            return f"node {int(nan[0])} compares with a NaN threshold"
+        if self.link != LINK_MEAN and not 0 <= tree.output < self.n_outputs:
+            return f"it adds to output {tree.output}, but the model has {self.n_outputs}"
+        return None
 
     # ------------------------------------------------------------------ summary
     @property

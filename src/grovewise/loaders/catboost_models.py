@@ -32,7 +32,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import ModelFileError, UnsupportedModelError
-from ..forest import COMPARE_LE_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, Forest, Tree
+from ..forest import (COMPARE_LE_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, Forest, Tree,
+                      plain_feature_names)
 from .families import Family
 
 # Losses whose probabilities the Forest reproduces, and the link of each.
@@ -244,10 +245,11 @@ def forest_from_catboost_json(doc: dict, *, classes=None, where: str = "the mode
     if n_features == 0:
         raise UnsupportedModelError(f"{where} has no numeric features; Grovewise reproduces "
                                     "CatBoost models of numeric (float) features only.")
+    plain = plain_feature_names(n_features)
     names = [names_by_col.get(c, "") for c in range(n_features)]
     has = all(names)
     if not has:
-        names = [f"x{c}" for c in range(n_features)]
+        names = plain
 
     scale, bias = 1.0, np.zeros(1)
     if "scale_and_bias" in doc:

@@ -23,6 +23,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from ..errors import DataError
+from ..forest import FLOAT32_MAX, uncomparable
 
 CSV_SUFFIXES = (".csv",)
 PARQUET_SUFFIXES = (".parquet", ".pq")
@@ -181,6 +182,7 @@ def load_data(path, forest=None, target: str | None = None, groups=()) -> Datase
     if extras:
         notes.append(f"ignored {len(extras)} column(s) that are not features: {_names(extras)}")
     X = _feature_matrix(table, features, p, no_model=forest is None, forest=forest)
+    _check_comparable(X, features, forest, p)
     y = None if target is None else _target_values(table[target], forest, target, p)
     missing = [g for g in groups if g not in columns]
     if missing:
@@ -333,6 +335,29 @@ def _feature_matrix(table: pd.DataFrame, features: list[str], p: Path,
         raise DataError(f"{p}: feature column(s) {_names(empty)} have no values at all; "
                         "fill them, or check that the file is the one the model was meant for.")
     return X
+
+
+def _check_comparable(X: np.ndarray, features: list[str], forest, p: Path) -> None:
+    """Refuse the values the model cannot compare, naming each column and its first row:
+    an infinite value for every model (and without one), and a number beyond float32's range
+    for a model that compares in float32 (its library would refuse it, or read infinity)."""
+    compare = None if forest is None else forest.compare
+    bad = uncomparable(X, compare)
+    if not bad.any():
+        return
+    shown = []
+    for j in np.flatnonzero(bad.any(axis=0)):
+        i = int(np.argmax(bad[:, j]))
+        shown.append(f"{features[j]!r} (data row {i + 1}: {X[i, j]:g}, "
+                     f"{int(bad[:, j].sum())} cell(s) in all)")
+    finite = bool(np.isfinite(X[bad]).any())
+    why = ("infinite values (inf, or a number beyond about 1.8e308), which no model can "
+           "compare" if not finite else
+           f"numbers beyond ±{FLOAT32_MAX:.7g} (or infinite values), outside the float32 "
+           f"range this model ({forest.kind}) compares in")
+    raise DataError(f"{p}: feature column(s) {_names(shown, quote=False)} hold {why}; data "
+                    "rows counted from 1 after the header. Correct those cells (an entry or "
+                    "unit mistake?), or empty them so that they are read as missing values.")
 
 
 def _column_as_float(col: pd.Series) -> tuple[np.ndarray | None, tuple[int, object] | None]:

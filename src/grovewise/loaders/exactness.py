@@ -6,6 +6,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from ..errors import GrovewiseError
 from ..forest import Forest
 from .families import NoReference, families, family_of
 
@@ -73,6 +74,14 @@ def check_exactness(forest: Forest, native, X: np.ndarray, *, progress=None,
             return ExactnessCheck(library=library, rows=0, max_abs_proba_diff=0.0,
                                   tolerance=tolerance, predictions_equal=True,
                                   leaves_equal=None, sample=sample, no_reference=str(why))
+        except Exception as exc:  # the library refused: its own error types, many of them
+            first = (str(exc).strip().splitlines() or [""])[0][:200]
+            raise GrovewiseError(
+                f"{library} could not predict with the model on rows {s + 1} to "
+                f"{min(n, s + CHUNK_ROWS)} of the data ({type(exc).__name__}: {first}), so "
+                "Grovewise cannot check its own predictions against it. Check those rows' "
+                "values; if they are ordinary numbers, report the model type and library "
+                "versions.") from None
         ours = forest.predict_proba(block)
         diff = max(diff, float(np.max(np.abs(ours - proba))))
         classes_equal &= bool(np.array_equal(np.argmax(ours, axis=1), index))

@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from ..errors import GrovewiseError, ModelFileError
 from ..forest import Forest
 
 # What a family's reference returns for some rows: the library's class probabilities, the
@@ -49,6 +50,24 @@ class Family:
     convert: Callable[[Any], Forest]
     reference: Callable[[Any, np.ndarray, Forest], Reference]
     supported: str
+
+
+# What a damaged model's content makes a converter raise (a count that is not a number, a
+# list too short, an index beyond a list, JSON nested too deep): a reader turns it into a
+# ModelFileError naming the file (as_model_error).
+DAMAGE = (KeyError, TypeError, ValueError, IndexError, AttributeError, OverflowError,
+          RecursionError)
+
+
+def as_model_error(exc: Exception, where: str, library: str) -> GrovewiseError:
+    """``exc``, raised while ``library``'s model in ``where`` was read, as a GrovewiseError
+    that names ``where`` (a GrovewiseError keeps its kind and words, with ``where`` first)."""
+    if isinstance(exc, GrovewiseError):
+        return exc if where in str(exc) else type(exc)(f"{where}: {exc}")
+    first = (str(exc).strip().splitlines() or [""])[0][:160]
+    return ModelFileError(f"{where}: the {library} model is not readable ({type(exc).__name__}"
+                          f"{': ' + first if first else ''}); the file may be damaged; save "
+                          "the model again with its library.")
 
 
 class NoReference(Exception):

@@ -29,10 +29,11 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import ModelFileError, UnsupportedModelError
+from ..errors import GrovewiseError, ModelFileError, UnsupportedModelError
 from ..forest import (COMPARE_LE_FLOAT64, LINK_LOGISTIC, LINK_SOFTMAX, MISSING_NAN, MISSING_NONE,
-                      MISSING_ZERO, CategorySplit, Forest, Tree, node_depths)
-from .families import Family, NoReference
+                      MAX_CATEGORY_CODE, MISSING_ZERO, CategorySplit, Forest, Tree,
+                      node_depths, plain_feature_names)
+from .families import DAMAGE, Family, NoReference, as_model_error
 
 _MISSING = {0: MISSING_NONE, 1: MISSING_ZERO, 2: MISSING_NAN}
 _MISSING_BY_NAME = {"None": 0, "Zero": 1, "NaN": 2}
@@ -63,17 +64,29 @@ def _header_and_trees(text: str, where: str) -> tuple[dict, list[dict], str]:
     if not sep:
         raise ModelFileError(f"{where}: the LightGBM model text has no 'end of trees' line; the "
                              "file may be truncated; save the model again.")
-    blocks = re.split(r"^Tree=\d+\s*$", body, flags=re.M)
-
-    def entries(block: str) -> dict:
-        out = {}
-        for line in block.splitlines():
-            key, eq, value = line.partition("=")
-            if eq:
-                out[key.strip()] = value.strip()
-        return out
-
-    return entries(blocks[0]), [entries(b) for b in blocks[1:]], tail
+    # Strict, so that LightGBM reads the text as Grovewise does: every line of the header and
+    # the trees is blank or key=value, no key twice in one part, the trees numbered 0, 1, ...
+    blocks: list[dict] = [{}]
+    for number, line in enumerate(body.splitlines(), start=1):
+        key, eq, value = line.partition("=")
+        if not line.strip() or (number == 1 and line.strip() == "tree"):
+            continue
+        if not eq:
+            raise ModelFileError(f"{where}: line {number} of the LightGBM model text is not "
+                                 "key=value; the file may be damaged; save the model again.")
+        key = key.strip()
+        if key == "Tree":
+            if value.strip() != str(len(blocks) - 1):
+                raise ModelFileError(f"{where}: line {number} starts tree {value.strip()!r} "
+                                     f"where tree {len(blocks) - 1} was expected; the file may "
+                                     "be damaged; save the model again.")
+            blocks.append({})
+            continue
+        if key in blocks[-1]:
+            raise ModelFileError(f"{where}: line {number} gives {key!r} a second time; the "
+                                 "file may be damaged; save the model again.")
+        blocks[-1][key] = value.strip()
+    return blocks[0], blocks[1:], tail
 
 
 def _numbers(entry: dict, key: str, dtype, where: str, count: int | None = None) -> np.ndarray:
@@ -122,15 +135,28 @@ def _tree_arrays_from_text(t: dict, where: str) -> dict:
                gain=_numbers(t, "split_gain", float, where, n_int),
                internal_count=_numbers(t, "internal_count", float, where, n_int)
                if "internal_count" in t else np.zeros(n_int))
+    decision = out["decision"]
+    # bits 0-3 only, and missing type 3 is none LightGBM writes (it reads it as no missing
+    # side at all); a categorical split needs the tree's bit sets.
+    if np.any((decision < 0) | (decision > 15) | ((decision >> 2) & 3 == 3)):
+        raise ModelFileError(f"{where}: a tree's decision_type holds a value LightGBM does not "
+                             "write; the file may be damaged; save the model again.")
+    num_cat = int(t.get("num_cat", "0"))
+    cat_nodes = np.flatnonzero(decision & 1)
     cat_sets = {}
-    if int(t.get("num_cat", "0")) > 0:
-        bounds = _numbers(t, "cat_boundaries", int, where)
+    if num_cat > 0 or cat_nodes.size:
+        bounds = _numbers(t, "cat_boundaries", int, where, num_cat + 1)
         words = _numbers(t, "cat_threshold", int, where)
-        for k in np.flatnonzero(out["decision"] & 1):
-            i = int(out["threshold"][k])
-            if not 0 <= i < bounds.shape[0] - 1:
+        if (num_cat < 1 or bounds[0] != 0 or np.any(np.diff(bounds) < 0)
+                or bounds[-1] != words.shape[0] or np.any(words < 0) or np.any(words >= 2**32)):
+            raise ModelFileError(f"{where}: a tree's num_cat, cat_boundaries and cat_threshold "
+                                 "do not describe its category bit sets; the file is damaged.")
+        for k in cat_nodes:
+            i = out["threshold"][k]
+            if not (0 <= i < bounds.shape[0] - 1 and i == int(i)):
                 raise ModelFileError(f"{where}: a categorical split points at bitset {i}, which "
                                      "the tree does not have; the file is damaged.")
+            i = int(i)
             cat_sets[int(k)] = _bitset_codes(words[bounds[i]:bounds[i + 1]])
     out["cat_sets"] = cat_sets
     return out
@@ -201,12 +227,14 @@ def _tree(a: dict, output: int, scale: float, where: str) -> Tree:
     def child(v: np.ndarray) -> np.ndarray:
         return np.where(v >= 0, v, n_int + (~v))
 
+    # LightGBM's own numbering: a child v >= 0 is internal node v (below n_int), a child
+    # v < 0 is leaf ~v (below n_leaves); LightGBM reads either without a bounds check.
+    kids = np.concatenate([a["left"], a["right"]])
+    if np.any(kids >= n_int) or np.any(~kids[kids < 0] >= a["n_leaves"]):
+        raise ModelFileError(f"{where}: a tree's child index is out of range; the file is damaged.")
     left = np.full(n_nodes, -1, dtype=np.int64)
     right = np.full(n_nodes, -1, dtype=np.int64)
     left[:n_int], right[:n_int] = child(a["left"]), child(a["right"])
-    if n_int and (left[:n_int].max() >= n_nodes or right[:n_int].max() >= n_nodes
-                  or left[:n_int].min() < 0 or right[:n_int].min() < 0):
-        raise ModelFileError(f"{where}: a tree's child index is out of range; the file is damaged.")
     feature = np.full(n_nodes, -1, dtype=np.int64)
     feature[:n_int] = a["feature"]
     threshold = np.zeros(n_nodes)
@@ -223,11 +251,7 @@ def _tree(a: dict, output: int, scale: float, where: str) -> Tree:
     categorical = {k: CategorySplit(left=codes, right=np.zeros(0, np.int64), other_left=False,
                                     truncated=True)
                    for k, codes in a["cat_sets"].items()}
-    try:
-        depth = node_depths(left, right)
-    except IndexError:
-        raise ModelFileError(f"{where}: a tree's children do not form a tree; the file is "
-                             "damaged.") from None
+    depth = node_depths(left, right)  # a ModelFileError when they form no tree (a cycle)
     return Tree(feature=feature, threshold=threshold, left=left, right=right,
                 missing_left=missing_left, value=value, depth=depth, gain=gain, cover=count,
                 output=output, missing_rule=missing_rule, categorical=categorical or None)
@@ -256,15 +280,28 @@ def _categories(infos: list[str], pandas_categorical, n_features: int) -> dict:
     info) and their names: pandas' categories when the model was fitted on a data frame."""
     cat_features = [j for j, info in enumerate(infos[:n_features])
                     if info and info != "none" and not info.startswith("[")]
+    codes = {j: [int(float(c)) for c in infos[j].split(":") if c.strip()] for j in cat_features}
+    if any(c > MAX_CATEGORY_CODE for cs in codes.values() for c in cs):
+        raise ModelFileError(f"a feature's categories go beyond code {MAX_CATEGORY_CODE}; the "
+                             "file may be damaged; save the model again.")
     names = {}
     lists = pandas_categorical if isinstance(pandas_categorical, list) else []
     for i, j in enumerate(cat_features):
         if len(lists) == len(cat_features):
             names[j] = [str(c) for c in lists[i]]
         else:
-            codes = [int(float(c)) for c in infos[j].split(":") if c.strip()]
-            names[j] = [str(c) for c in range(max([c for c in codes if c >= 0], default=0) + 1)]
+            names[j] = [str(c) for c in range(max([c for c in codes[j] if c >= 0], default=0) + 1)]
     return names
+
+
+def _pandas_categorical(tail: str):
+    """The categories of a model fitted on a data frame, as LightGBM's Python package writes
+    them after the trees (one JSON line; its own reader takes the last one), or None."""
+    found = re.findall(r"^pandas_categorical:(.*)$", tail, flags=re.M)
+    try:
+        return json.loads(found[-1]) if found else None
+    except (json.JSONDecodeError, RecursionError):
+        return None
 
 
 def _forest(header: dict, trees: list[dict], *, pandas_categorical, classes, where: str,
@@ -278,7 +315,17 @@ def _forest(header: dict, trees: list[dict], *, pandas_categorical, classes, whe
         raise ModelFileError(f"{where}: the LightGBM model has no valid objective / "
                              "num_class / max_feature_idx; the file may be damaged.") from None
     link = _link(objective, where)
-    n_classes = 2 if link == LINK_LOGISTIC else num_class
+    # LightGBM reads these counts as they stand; a model that disagrees with itself is read
+    # one way by LightGBM and another by Grovewise (or crashes LightGBM's predict).
+    binary = link == LINK_LOGISTIC
+    said = dict(q.split(":", 1) for q in objective.split()[1:] if ":" in q).get("num_class")
+    if (num_class != (1 if binary else k) or k < 1 or (not binary and k < 2)
+            or len(trees) % k or (said is not None and int(said) != num_class)):
+        raise ModelFileError(f"{where}: the LightGBM model's num_class={num_class} and "
+                             f"num_tree_per_iteration={k} do not fit its objective "
+                             f"{objective.split()[0]!r} and its {len(trees)} trees; the file "
+                             "may be damaged; save the model again.")
+    n_classes = 2 if binary else num_class
     scale = 1.0
     if header.get("average_output"):
         scale = 1.0 / max(1, len(trees) // max(k, 1))
@@ -288,9 +335,13 @@ def _forest(header: dict, trees: list[dict], *, pandas_categorical, classes, whe
             raise ModelFileError(f"{where}: a split uses feature {int(t.feature.max())}, but the "
                                  f"model has {n_features}; the file is damaged.")
     names = list(header.get("feature_names") or [])
-    has = len(names) == n_features and not all(_AUTO_NAME.match(n) for n in names)
+    if len(names) != n_features:  # LightGBM writes one name per feature, Column_j or its own
+        raise ModelFileError(f"{where}: the LightGBM model says max_feature_idx={n_features - 1}"
+                             f" but names {len(names)} features; the file may be damaged; save "
+                             "the model again.")
+    has = not all(_AUTO_NAME.match(n) for n in names)
     if not has:
-        names = [f"x{j}" for j in range(n_features)]
+        names = plain_feature_names(n_features)
     labels = np.arange(n_classes) if classes is None else np.asarray(classes)
     if labels.shape[0] != n_classes:
         raise ModelFileError(f"{where}: the model has {n_classes} classes but {labels.shape[0]} "
@@ -306,24 +357,32 @@ def _forest(header: dict, trees: list[dict], *, pandas_categorical, classes, whe
                           "objective": objective, "estimator": estimator})
 
 
+def _readable(convert):
+    """``convert`` with what a damaged model raises turned into a ModelFileError naming
+    ``where``, and a GrovewiseError from the Forest's own checks named too."""
+    def wrapped(*args, where: str = "the model", **kwargs) -> Forest:
+        try:
+            return convert(*args, where=where, **kwargs)
+        except (GrovewiseError, *DAMAGE) as exc:
+            raise as_model_error(exc, where, "LightGBM") from None
+    wrapped.__doc__ = convert.__doc__
+    wrapped.__name__ = convert.__name__
+    return wrapped
+
+
+@_readable
 def forest_from_lightgbm_text(text: str, *, classes=None, where: str = "the model",
                               estimator: str = "Booster") -> Forest:
     """Convert LightGBM's model text (``model_to_string()`` or a saved model file)."""
     header, trees, tail = _header_and_trees(text, where)
     for key in ("feature_names", "feature_infos"):
         header[key] = header.get(key, "").split()
-    pandas_categorical = None
-    found = re.search(r"^pandas_categorical:(.*)$", tail, flags=re.M)
-    if found:
-        try:
-            pandas_categorical = json.loads(found.group(1))
-        except json.JSONDecodeError:
-            pandas_categorical = None
     arrays = [_tree_arrays_from_text(t, where) for t in trees]
-    return _forest(header, arrays, pandas_categorical=pandas_categorical, classes=classes,
-                   where=where, estimator=estimator)
+    return _forest(header, arrays, pandas_categorical=_pandas_categorical(tail),
+                   classes=classes, where=where, estimator=estimator)
 
 
+@_readable
 def forest_from_lightgbm_dump(doc: dict, *, classes=None, where: str = "the model") -> Forest:
     """Convert LightGBM's ``dump_model()`` (as a dict)."""
     try:
@@ -383,20 +442,38 @@ def read_lightgbm_text(p: Path):
     except UnicodeDecodeError:
         raise ModelFileError(f"{p}: not a text file; expected LightGBM's model text "
                              "(save_model).") from None
-    # Read it ourselves first: LightGBM aborts the whole process on some damaged texts, so it
-    # only sees a text that parsed, and without the tree_sizes line (optional; LightGBM uses
-    # it to cut the text into trees, and a wrong one is one such abort).
-    forest_from_lightgbm_text(text, where=str(p))
-    text = re.sub(r"^tree_sizes=.*$", "", text, count=1, flags=re.M)
+    if "\x00" in text:  # LightGBM reads the text as a C string: it would end there
+        raise ModelFileError(f"{p}: the model text holds a NUL character; the file may be "
+                             "damaged; save the model again.")
+    # Read it ourselves first: LightGBM aborts or crashes the whole process on some damaged
+    # texts, so it only sees what parsed: the header and the trees, without the tree_sizes
+    # line (optional; LightGBM cuts the text into trees by it, and a wrong one is one such
+    # abort), then the data frame's categories as read here; not the importances and
+    # training parameters, which prediction does not read (a parameters section cut short
+    # is another crash).
+    forest = forest_from_lightgbm_text(text, where=str(p))
+    body, _, tail = re.sub(r"^tree_sizes=.*$", "", text, count=1, flags=re.M).partition(
+        "end of trees")
+    categories = _pandas_categorical(tail)
+    text = body + "end of trees\n" + (f"\npandas_categorical:{json.dumps(categories)}\n"
+                                       if categories is not None else "")
     try:
-        return lightgbm.Booster(model_str=text)
+        booster = lightgbm.Booster(model_str=text)
     except (lightgbm.basic.LightGBMError, ValueError) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise ModelFileError(f"{p}: LightGBM could not read this model text ({first[:200]}); "
                              "it may be damaged; save the model again.") from None
+    if (booster.num_trees(), booster.num_feature()) != (forest.n_trees, forest.n_features):
+        raise ModelFileError(f"{p}: LightGBM reads {booster.num_trees()} trees of "
+                             f"{booster.num_feature()} features from this text, Grovewise "
+                             f"{forest.n_trees} of {forest.n_features}; the file may be "
+                             "damaged; save the model again.")
+    return booster
 
 
 def read_lightgbm_dump(doc: dict, p: Path) -> LightGBMDump:
+    """A dump_model JSON, converted once so that its refusals name the file."""
+    forest_from_lightgbm_dump(doc, where=str(p))
     return LightGBMDump(doc=doc, path=str(p))
 
 

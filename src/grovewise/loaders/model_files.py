@@ -15,9 +15,10 @@ import json
 import zipfile
 from pathlib import Path
 
-from ..errors import ModelFileError, UnsafeModelError
+from ..errors import GrovewiseError, ModelFileError, UnsafeModelError
 from ..forest import Forest
 from .estimators import from_estimator
+from .families import DAMAGE, as_model_error
 
 JSON_SUFFIXES = (".json",)
 XGBOOST_SUFFIXES = (".ubj",)
@@ -26,6 +27,9 @@ CATBOOST_SUFFIXES = (".cbm",)
 ONNX_SUFFIXES = (".onnx",)
 SKOPS_SUFFIXES = (".skops",)
 PICKLE_SUFFIXES = (".pkl", ".pickle", ".joblib")
+# Files whose model is converted by load_native after its library read it (the other readers
+# convert the file's content themselves, before the library sees it).
+CHECKED_HERE = SKOPS_SUFFIXES + PICKLE_SUFFIXES + ONNX_SUFFIXES
 SUFFIXES = (JSON_SUFFIXES + XGBOOST_SUFFIXES + LIGHTGBM_SUFFIXES + CATBOOST_SUFFIXES
             + ONNX_SUFFIXES + SKOPS_SUFFIXES + PICKLE_SUFFIXES)
 
@@ -85,9 +89,23 @@ def load_model(path, *, trusted: bool = False) -> Forest:
 def load_native(path, *, trusted: bool = False):
     """Read a model file into the library's own object (an estimator or an XGBoost Booster).
 
-    The same checks and errors as :func:`load_model`, which converts what this returns.
+    The same checks and errors as :func:`load_model`, which converts what this returns. The
+    model is converted once here too (XGBoost, LightGBM and CatBoost files by their readers,
+    before their library reads them), so that a damaged model is refused with the file's
+    name before its library predicts with it: a library that trusts a damaged tree can crash
+    the whole process.
     """
     p = Path(path)
+    try:
+        native = _read_native(p, trusted)
+        if p.suffix.lower() in CHECKED_HERE:
+            from_estimator(native)
+    except (GrovewiseError, *DAMAGE) as exc:  # the library's objects hold what the file held
+        raise as_model_error(exc, str(p), "file's") from None
+    return native
+
+
+def _read_native(p: Path, trusted: bool):
     suffix = p.suffix.lower()
     if suffix not in SUFFIXES:
         raise ModelFileError(f"{p}: unknown model file type {p.suffix or '(no suffix)'!r}; "
@@ -129,8 +147,11 @@ def _load_json(p: Path):
         doc = json.loads(p.read_text(encoding="utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise ModelFileError(f"{p}: not valid JSON ({exc}); expected {EXPECTED}.") from None
+    except RecursionError:
+        raise ModelFileError(f"{p}: JSON nested too deeply to be a model; expected "
+                             f"{EXPECTED}.") from None
     if isinstance(doc, dict) and "learner" in doc:
-        return _load_xgboost(p)
+        return _load_xgboost(p, doc)
     if isinstance(doc, dict) and "tree_info" in doc:
         from .lightgbm_models import read_lightgbm_dump
 
@@ -145,9 +166,26 @@ def _load_json(p: Path):
                          "no 'oblivious_trees' or 'features_info' as in CatBoost's JSON export).")
 
 
-def _load_xgboost(p: Path):
+def _load_xgboost(p: Path, doc: dict | None = None):
+    """XGBoost's Booster, once the model (``doc``: the JSON already read; else the UBJSON
+    file) converted without a problem: XGBoost's reader can crash the process on a damaged
+    model, so it only sees one that Grovewise has read and checked whole."""
     import xgboost
 
+    from .ubjson import read_ubjson
+    from .xgboost_models import forest_from_xgboost_json
+
+    if doc is None:
+        try:
+            doc = read_ubjson(p.read_bytes())
+        except ValueError as exc:
+            raise ModelFileError(f"{p}: not a readable XGBoost binary model (UBJSON: {exc}); it "
+                                 "may be damaged or truncated; save the model again with "
+                                 "save_model.") from None
+        if not isinstance(doc, dict) or "learner" not in doc:
+            raise ModelFileError(f"{p}: UBJSON, but not an XGBoost model (no 'learner' entry); "
+                                 "give a file written by XGBoost's save_model.")
+    forest_from_xgboost_json(doc, where=str(p))
     booster = xgboost.Booster()
     try:
         booster.load_model(str(p))

@@ -38,7 +38,8 @@ import numpy as np
 
 from ..errors import ModelFileError, UnsupportedModelError
 from ..forest import (COMPARE_LE_FLOAT32, COMPARE_LE_FLOAT64, COMPARE_LT_FLOAT32, LINK_LOGISTIC,
-                      LINK_MEAN, LINK_SOFTMAX, CategorySplit, Forest, Tree, node_depths)
+                      LINK_MEAN, LINK_SOFTMAX, CategorySplit, Forest, Tree, node_depths,
+                      plain_feature_names)
 from .families import Family, NoReference
 
 INSTALL = 'pip install "grovewise[onnx]"'
@@ -771,7 +772,7 @@ def forest_from_onnx(model) -> Forest:
                                            len(trees), where))
     return Forest(
         trees=out_trees, classes_=np.asarray(plan.classes),
-        feature_names=[f"x{j}" for j in range(n_features)], has_feature_names=False,
+        feature_names=plain_feature_names(n_features), has_feature_names=False,
         kind="onnx", link=plan.link, compare=compare, base_score=plan.base,
         source={"library": "onnx", "version": onnx.__version__,
                 "producer": model.producer_name, "producer_version": model.producer_version,

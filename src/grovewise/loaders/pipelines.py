@@ -32,7 +32,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..errors import UnsupportedModelError
-from ..forest import (COMPARE_LE_FLOAT64, MISSING_NAN, MISSING_ZERO, CategorySplit, Forest, Tree)
+from ..forest import (COMPARE_LE_FLOAT64, MISSING_NAN, MISSING_ZERO, CategorySplit, Forest, Tree,
+                      plain_feature_names)
 from .families import Family
 
 ELEMENTWISE = ("SimpleImputer", "StandardScaler", "MinMaxScaler")
@@ -153,7 +154,7 @@ def _layout(pipe) -> _Layout:
     names = getattr(pipe, "feature_names_in_", None)
     n_raw = int(pipe.n_features_in_)
     has_names = names is not None
-    names = [str(n) for n in names] if has_names else [f"x{j}" for j in range(n_raw)]
+    names = [str(n) for n in names] if has_names else plain_feature_names(n_raw)
     sources = [Source(raw=j) for j in range(n_raw)]
     for _, step in pipe.steps[:-1]:
         sources = _trace(step, sources)

@@ -43,7 +43,8 @@ import numpy as np
 
 from ..errors import UnsupportedModelError
 from ..forest import (COMPARE_LE_FLOAT32, COMPARE_LE_FLOAT64, LINK_LOGISTIC, LINK_MEAN,
-                      LINK_SOFTMAX, CategorySplit, Forest, Tree, node_depths)
+                      LINK_SOFTMAX, CategorySplit, Forest, Tree, node_depths,
+                      plain_feature_names)
 from .families import Family
 
 KINDS = {
@@ -63,7 +64,7 @@ def is_sklearn_model(est) -> bool:
 def _feature_names(est, n_features: int) -> tuple[list[str], bool]:
     names = getattr(est, "feature_names_in_", None)
     if names is None:
-        return [f"x{j}" for j in range(n_features)], False
+        return plain_feature_names(n_features), False
     return [str(n) for n in names], True
 
 

@@ -31,12 +31,13 @@ import math
 
 import numpy as np
 
-from ..errors import ModelFileError, UnsupportedModelError
-from ..forest import (COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, CategorySplit, Forest, Tree,
-                      node_depths)
-from .families import Family
+from ..errors import GrovewiseError, ModelFileError, UnsupportedModelError
+from ..forest import (COMPARE_LT_FLOAT32, LINK_LOGISTIC, LINK_SOFTMAX, MAX_CATEGORY_CODE,
+                      CategorySplit, Forest, Tree, node_depths, plain_feature_names)
+from .families import DAMAGE, Family, as_model_error
 
 OBJECTIVES = ("binary:logistic", "multi:softprob", "multi:softmax")
+DAMAGED = "the model is damaged; save it again with XGBoost's save_model"
 
 
 def is_xgboost_model(obj) -> bool:
@@ -53,54 +54,138 @@ def _parse_floats(text) -> np.ndarray:
 
 def _category_splits(t: dict, split_type: np.ndarray, leaf: np.ndarray) -> dict:
     """The tree's categorical splits, node id -> CategorySplit (XGBoost's set goes right)."""
-    nodes = [int(k) for k in t.get("categories_nodes", [])]
-    begins = t.get("categories_segments", [])
-    sizes = t.get("categories_sizes", [])
-    cats = np.asarray(t.get("categories", []), dtype=np.int64)
-    if len(begins) != len(nodes) or len(sizes) != len(nodes):
-        raise ModelFileError("XGBoost: the tree's categories_nodes, categories_segments and "
-                             "categories_sizes differ in length; the model is damaged.")
-    sets = {k: cats[int(b):int(b) + int(n)] for k, b, n in zip(nodes, begins, sizes)}
+    nodes = _ints(t.get("categories_nodes", []), len(t.get("categories_nodes", [])),
+                  "categories_nodes")
+    begins = _ints(t.get("categories_segments", []), nodes.shape[0], "categories_segments")
+    sizes = _ints(t.get("categories_sizes", []), nodes.shape[0], "categories_sizes")
+    cats = _ints(t.get("categories", []), len(t.get("categories", [])), "categories")
+    # XGBoost reads the sets in node order and writes each into a bit field, without bounds
+    # checks: one set per categorical split, in node order, each within the categories and
+    # not empty (XGBoost writes no split without its set, and fails to write one back).
+    split_nodes = np.flatnonzero((split_type == 1) & ~leaf)
+    if (not np.array_equal(nodes, split_nodes) or np.any(sizes <= 0) or np.any(begins < 0)
+            or np.any(begins + sizes > cats.shape[0])):
+        raise ModelFileError("its categories_nodes, categories_segments and categories_sizes "
+                             f"do not describe its categorical splits; {DAMAGED}.")
+    if cats.size and (cats.min() < 0 or cats.max() > MAX_CATEGORY_CODE):
+        odd = int(cats.min()) if cats.min() < 0 else int(cats.max())
+        raise ModelFileError(f"a categorical split holds the category {odd}, outside 0 to "
+                             f"{MAX_CATEGORY_CODE}; {DAMAGED}.")
+    sets = {int(k): cats[int(b):int(b) + int(n)] for k, b, n in zip(nodes, begins, sizes)}
     empty = np.zeros(0, dtype=np.int64)
     out = {}
-    for k in np.flatnonzero((split_type == 1) & ~leaf):
-        # A categorical node without a stored set (XGBoost never writes one) sends every
-        # category left, as XGBoost's loader leaves it an empty bit field.
-        right = np.unique(sets.get(int(k), empty))
+    for k in split_nodes:
+        right = np.unique(sets[int(k)])
         if right.size and right[0] < 0:
-            raise ModelFileError("XGBoost: a categorical split holds a negative category; the "
-                                 "model is damaged.")
+            raise ModelFileError(f"node {int(k)}: a categorical split holds a negative "
+                                 f"category; {DAMAGED}.")
         out[int(k)] = CategorySplit(left=empty, right=right, other_left=True)
     return out
+
+
+def _ints(values, n: int, key: str) -> np.ndarray:
+    """A node list of whole numbers, exactly ``n`` long (XGBoost indexes it by node)."""
+    arr = np.asarray(values)
+    if arr.ndim != 1 or arr.shape[0] != n or not (
+            arr.dtype.kind in "iub" or (arr.size == 0 and arr.dtype.kind == "f")):
+        raise ModelFileError(f"{key} is not a list of {n} whole numbers; {DAMAGED}.")
+    return arr.astype(np.int64)
+
+
+def _floats(values, n: int, key: str) -> np.ndarray:
+    arr = np.asarray(values)
+    if arr.ndim != 1 or arr.shape[0] != n or arr.dtype.kind not in "iuf":
+        raise ModelFileError(f"{key} is not a list of {n} numbers; {DAMAGED}.")
+    return arr.astype(np.float64)
+
+
+def _check_links(t: dict, left: np.ndarray, right: np.ndarray) -> None:
+    """The tree's own bookkeeping that XGBoost's reader trusts (it crashes the process when
+    it is wrong): its node count, and each node's parent (children already form a tree)."""
+    n = left.shape[0]
+    if int(t["tree_param"]["num_nodes"]) != n:
+        raise ModelFileError(f"tree_param says {t['tree_param']['num_nodes']} nodes, the lists "
+                             f"hold {n}; {DAMAGED}.")
+    parents = _ints(t["parents"], n, "parents")
+    inner = np.flatnonzero(left >= 0)
+    kids = np.concatenate([left[inner], right[inner]])
+    if n and (parents[0] not in (-1, 2**31 - 1)  # the root's parent: none
+              or not np.array_equal(parents[kids], np.concatenate([inner, inner]))):
+        raise ModelFileError(f"its parents list does not match its children lists; "
+                             f"{DAMAGED}.")
 
 
 def _convert_tree(t: dict, output: int) -> Tree:
     if int(t["tree_param"].get("size_leaf_vector", "1")) > 1:
         raise UnsupportedModelError("XGBoost: multi-target (vector-leaf) trees are not supported; "
                                     "retrain with multi_strategy='one_output_per_tree'.")
-    left = np.asarray(t["left_children"], dtype=np.int64)
-    right = np.asarray(t["right_children"], dtype=np.int64)
+    left = _ints(t["left_children"], len(t["left_children"]), "left_children")
+    n = left.shape[0]
+    right = _ints(t["right_children"], n, "right_children")
+    depth = node_depths(left, right)  # one tree, before any list is read by node
+    _check_links(t, left, right)
     leaf = left < 0
-    split_type = np.asarray(t.get("split_type", [0] * left.shape[0]), dtype=np.int64)
+    split_type = _ints(t.get("split_type", [0] * n), n, "split_type")
     if np.any((split_type[~leaf] != 0) & (split_type[~leaf] != 1)):
         raise UnsupportedModelError("XGBoost: a split type other than numeric (0) or categorical "
                                     "(1) is not supported.")
+    if np.any(split_type[leaf] != 0):
+        raise ModelFileError(f"leaf {int(np.flatnonzero(leaf & (split_type != 0))[0])} has a "
+                             f"split type; {DAMAGED}.")
     categorical = _category_splits(t, split_type, leaf)
-    is_cat = np.zeros(left.shape[0], dtype=bool)
+    is_cat = np.zeros(n, dtype=bool)
     is_cat[list(categorical)] = True
-    cond = np.asarray(t["split_conditions"], dtype=np.float32).astype(np.float64)
+    cond = _floats(t["split_conditions"], n, "split_conditions").astype(np.float32)
+    _floats(t["base_weights"], n, "base_weights")
     return Tree(
-        feature=np.where(leaf, -1, np.asarray(t["split_indices"], dtype=np.int64)),
-        threshold=np.where(leaf | is_cat, 0.0, cond),
+        feature=np.where(leaf, -1, _ints(t["split_indices"], n, "split_indices")),
+        threshold=np.where(leaf | is_cat, 0.0, cond.astype(np.float64)),
         left=left, right=right,
-        missing_left=np.asarray(t["default_left"], dtype=bool) & ~leaf,
-        value=np.where(leaf, cond, 0.0).reshape(-1, 1),
-        depth=node_depths(left, right),
-        gain=np.where(leaf, 0.0, np.asarray(t["loss_changes"], dtype=np.float64)),
-        cover=np.asarray(t["sum_hessian"], dtype=np.float64),
+        missing_left=_ints(t["default_left"], n, "default_left").astype(bool) & ~leaf,
+        value=np.where(leaf, cond.astype(np.float64), 0.0).reshape(-1, 1),
+        depth=depth,
+        gain=np.where(leaf, 0.0, _floats(t["loss_changes"], n, "loss_changes")),
+        cover=_floats(t["sum_hessian"], n, "sum_hessian"),
         output=output,
         categorical=categorical or None,
     )
+
+
+def _check_cats(gbtree: dict, n_features: int) -> None:
+    """The stored categories (``cats``) as XGBoost writes them, or none at all: one entry
+    per feature, segments counting each feature's categories, each feature's order a
+    permutation of them, a text feature's offsets within its bytes (XGBoost's reader takes
+    them as they stand and fails to write the model back otherwise)."""
+    cats = gbtree.get("cats")
+    if cats is None:
+        return
+    enc, seg, order = cats.get("enc", []), cats.get("feature_segments", []), \
+        cats.get("sorted_idx", [])
+    if not (len(enc) or len(seg) or len(order)):
+        return
+    bad = ModelFileError(f"the stored categories (cats) do not describe the model's "
+                         f"{n_features} features; {DAMAGED}.")
+    if not isinstance(enc, list) or len(enc) != n_features:
+        raise bad
+    seg = _ints(seg, n_features + 1, "cats feature_segments")
+    order = _ints(order, len(order), "cats sorted_idx")
+    if seg[0] != 0 or np.any(np.diff(seg) < 0) or seg[-1] != order.shape[0]:
+        raise bad
+    for j, col in enumerate(enc):
+        count = int(seg[j + 1] - seg[j])
+        if not isinstance(col, dict) or not np.array_equal(
+                np.sort(order[seg[j]:seg[j + 1]]), np.arange(count)):
+            raise bad
+        values = col.get("values", [])
+        if "offsets" in col:
+            off = _ints(col["offsets"], len(col["offsets"]), "cats offsets")
+            if count and (off.shape[0] != count + 1 or off[0] != 0
+                          or np.any(np.diff(off) < 0) or off[-1] != len(values)):
+                raise bad
+            if not count and (off.size or len(values)):
+                raise bad
+        elif len(values) != count:
+            raise bad
 
 
 def _stored_category_names(gbtree: dict, n_features: int) -> dict:
@@ -147,6 +232,10 @@ def forest_from_xgboost_json(model: dict, *, classes=None, where: str = "the mod
 
     ``classes`` are the labels of the classes in output order (an XGBClassifier's
     ``classes_``); without them the classes are 0..K-1, as XGBoost itself numbers them.
+
+    Everything XGBoost's own reader trusts is checked first (it crashes the process on a
+    child index out of range, a tree id twice, a tree's output group beyond the classes,
+    and more), so a damaged model is a ModelFileError naming ``where`` and the tree.
     """
     try:
         learner = model["learner"]
@@ -157,37 +246,90 @@ def forest_from_xgboost_json(model: dict, *, classes=None, where: str = "the mod
         raise ModelFileError(f"{where} is JSON but not an XGBoost model (no learner / "
                              "gradient_booster / objective); give a file written by XGBoost's "
                              "save_model.") from None
-    if booster.get("name") != "gbtree":
-        raise UnsupportedModelError(f"XGBoost booster {booster.get('name')!r} in {where} is not "
+    if not isinstance(booster, dict) or booster.get("name") != "gbtree":
+        name = booster.get("name") if isinstance(booster, dict) else booster
+        raise UnsupportedModelError(f"XGBoost booster {name!r} in {where} is not "
                                     "supported; only tree boosters ('gbtree') are.")
-    if objective not in OBJECTIVES:
+    if not isinstance(objective, str) or objective not in OBJECTIVES:
         raise UnsupportedModelError(f"XGBoost objective {objective!r} in {where} is not a "
                                     f"supported classifier objective ({', '.join(OBJECTIVES)}).")
-    gbtree = booster["model"]
+    try:
+        return _forest(model, learner, booster["model"], objective, params, classes, where)
+    except (GrovewiseError, *DAMAGE) as exc:
+        raise as_model_error(exc, where, "XGBoost") from None
+
+
+def _forest(model: dict, learner: dict, gbtree: dict, objective: str, params: dict, classes,
+            where: str) -> Forest:
     trees_json = gbtree["trees"]
-    tree_info = gbtree["tree_info"]
-    indptr = gbtree.get("iteration_indptr")
-    best = learner.get("attributes", {}).get("best_iteration")
-    if best is not None and indptr:
-        # The scikit-learn wrapper predicts with the trees up to the best iteration.
-        trees_json = trees_json[: indptr[int(best) + 1]]
-        tree_info = tree_info[: indptr[int(best) + 1]]
+    tree_info = _ints(gbtree["tree_info"], len(gbtree["tree_info"]), "tree_info")
     num_class = int(params.get("num_class", "0"))
+    n_groups = max(num_class, 1)  # XGBoost's output groups: one per class, one for binary
+    n_trees = len(trees_json)
+    declared = (gbtree.get("gbtree_model_param") or {}).get("num_trees", n_trees)
+    if int(declared) != n_trees or tree_info.shape[0] != n_trees:
+        raise ModelFileError(f"{where}: the model declares {declared} trees, lists "
+                             f"{n_trees} and gives {tree_info.shape[0]} output groups; {DAMAGED}.")
+    if n_trees and (tree_info.min() < 0 or tree_info.max() >= n_groups):
+        raise ModelFileError(f"{where}: a tree adds to output group {int(tree_info.max())}, "
+                             f"but the model has {n_groups}; {DAMAGED}.")
+    if objective != "binary:logistic" and num_class < 2:
+        raise ModelFileError(f"{where}: the objective {objective} needs num_class 2 or more, "
+                             f"the model says {num_class}; {DAMAGED}.")
+    indptr = gbtree.get("iteration_indptr")
+    if indptr is not None:
+        indptr = _ints(indptr, len(indptr), "iteration_indptr")
+        if (indptr.size == 0 or indptr[0] != 0 or np.any(np.diff(indptr) < 0)
+                or indptr[-1] != n_trees):
+            raise ModelFileError(f"{where}: the model's iteration_indptr does not count its "
+                                 f"{n_trees} trees; {DAMAGED}.")
+    best = (learner.get("attributes") or {}).get("best_iteration")
+    kept = n_trees
+    if best is not None and indptr is not None and indptr.size:
+        if not 0 <= int(best) < indptr.size - 1:
+            raise ModelFileError(f"{where}: best_iteration {best} is not one of the model's "
+                                 f"{indptr.size - 1} iterations; {DAMAGED}.")
+        # The scikit-learn wrapper predicts with the trees up to the best iteration (the
+        # others are checked too: XGBoost reads them all).
+        kept = int(indptr[int(best) + 1])
     n_classes = max(num_class, 2)
     base = _parse_floats(params["base_score"])
+    if base.size == 0 or not np.isfinite(base).all():
+        raise ModelFileError(f"{where}: the base_score {params['base_score']!r} is not a "
+                             f"number; {DAMAGED}.")
     if objective == "binary:logistic":
         link = LINK_LOGISTIC
         p = float(base[0])
+        if not 0.0 < p < 1.0:
+            raise ModelFileError(f"{where}: the base_score {p!r} of a binary:logistic model is "
+                                 f"not a probability between 0 and 1; {DAMAGED}.")
         base = np.array([math.log(p / (1.0 - p))])
     else:
         link = LINK_SOFTMAX
         base = np.broadcast_to(base, (n_classes,)).copy() if base.size in (1, n_classes) else base
-    trees = [_convert_tree(t, int(k)) for t, k in zip(trees_json, tree_info)]
+    trees = []
+    for i, (t, k) in enumerate(zip(trees_json, tree_info)):
+        try:
+            if int(t.get("id", i)) != i:
+                raise ModelFileError(f"its id is {t.get('id')!r}; {DAMAGED}.")
+            trees.append(_convert_tree(t, int(k)))
+        except (GrovewiseError, *DAMAGE) as exc:
+            raise as_model_error(exc, f"{where}, tree {i}", "XGBoost") from None
+    trees = trees[:kept]
     n_features = int(params["num_feature"])
-    names = [str(n) for n in learner.get("feature_names") or []]
+    if n_features < 1:
+        raise ModelFileError(f"{where}: the model has num_feature {n_features}; {DAMAGED}.")
+    _check_cats(gbtree, n_features)
+    names = learner.get("feature_names") or []
+    types = learner.get("feature_types") or []
+    for key, values in (("feature_names", names), ("feature_types", types)):
+        if (not isinstance(values, list) or len(values) not in (0, n_features)
+                or not all(isinstance(v, str) for v in values)):
+            raise ModelFileError(f"{where}: the model's {key} is not a list of {n_features} "
+                                 f"names; {DAMAGED}.")
     has = len(names) == n_features and n_features > 0
     if not has:
-        names = [f"x{j}" for j in range(n_features)]
+        names = plain_feature_names(n_features)
     labels = np.arange(n_classes) if classes is None else np.asarray(classes)
     if labels.shape[0] != n_classes:
         raise ModelFileError(f"{where} has {n_classes} classes but {labels.shape[0]} labels were given.")

@@ -51,8 +51,8 @@ def check_formats(formats: Sequence[str]) -> tuple[str, ...]:
     out = tuple(str(f).lower().lstrip(".") for f in formats)
     bad = [f for f in out if f not in FIGURE_FORMATS]
     if bad or not out:
-        raise SettingError(f"figure format(s) {', '.join(bad) or 'none'} not supported; use "
-                           f"{', '.join(FIGURE_FORMATS)}")
+        raise SettingError(f"--formats: figure format(s) {', '.join(bad) or 'none'} not "
+                           f"supported; use {', '.join(FIGURE_FORMATS)}")
     return out
 
 
