@@ -63,7 +63,8 @@ def twenty_thousand(tmp_path_factory):
     return folder
 
 
-@pytest.mark.parametrize("limit", [5.0, 10.0, 30.0])
+# 30 s is checked on purpose (-m slow) and by tests/bench/test_scale_bench.py
+@pytest.mark.parametrize("limit", [5.0, 10.0, pytest.param(30.0, marks=pytest.mark.slow)])
 def test_the_time_limit_bounds_the_whole_surrogate_step(twenty_thousand, limit):
     from grovewise.review import Review, ReviewInputs, ReviewSettings
 
