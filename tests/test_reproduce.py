@@ -73,11 +73,15 @@ def test_a_changed_stability_or_second_model_figure_is_named(written, tmp_path, 
         node = node[part]
     node[path[-1]] = round(node[path[-1]] + 0.0123, 4)
     manifest_path.write_text(json.dumps(manifest, indent=1))
+    assert f"{key.replace('_', ' ')} figures stated differ" in _stated_check(manifest_path)
+
+
+def _stated_check(manifest_path) -> str:
+    """``reproduce`` (no re-fit) must fail; the detail of its check of the stated figures."""
     verdict = reproduce(manifest_path, refit=False)
     assert not verdict.passed
-    detail = dict((n, d) for n, _, d in verdict.checks)["manifest.json figures against the "
-                                                       "saved review"]
-    assert f"{key.replace('_', ' ')} figures stated differ" in detail
+    return dict((n, d) for n, _, d in verdict.checks)["manifest.json figures against the "
+                                                      "saved review"]
 
 
 def test_a_changed_figure_in_the_manifest_is_named(written, tmp_path, capsys):
@@ -87,10 +91,7 @@ def test_a_changed_figure_in_the_manifest_is_named(written, tmp_path, capsys):
     stated = manifest["fidelity"]["surrogate"]["holdout"]
     manifest["fidelity"]["surrogate"]["holdout"] = round(stated + 0.0191, 4)
     path.write_text(json.dumps(manifest, indent=1))
-    verdict = reproduce(path, refit=False)
-    assert not verdict.passed
-    detail = dict((n, d) for n, _, d in verdict.checks)["manifest.json figures against the "
-                                                       "saved review"]
+    detail = _stated_check(path)
     assert f"surrogate holdout fidelity {round(stated + 0.0191, 4)!r} stated" in detail
     assert main(["reproduce", str(path)]) == 1
     assert "NOT reproduced" in capsys.readouterr().out

@@ -109,20 +109,24 @@ BLOCK_GAP = 10.0
 
 # --- ops: what a page holds, positioned in points from the page's top-left corner ----------
 
+class _Op:
+    """What a page holds; ``shifted`` moves it down by ``dy`` points (a dataclass with ``y``)."""
+
+    def shifted(self, dy: float):
+        return replace(self, y=self.y + dy)
+
+
 @dataclass
-class _Text:
+class _Text(_Op):
     x: float
     y: float  # baseline
     text: str
     font: _Font
     ha: str = "left"
 
-    def shifted(self, dy: float) -> "_Text":
-        return replace(self, y=self.y + dy)
-
 
 @dataclass
-class _Rule:
+class _Rule(_Op):
     x0: float
     x1: float
     y: float
@@ -130,12 +134,9 @@ class _Rule:
     color: str = RULE
     dotted: bool = False
 
-    def shifted(self, dy: float) -> "_Rule":
-        return replace(self, y=self.y + dy)
-
 
 @dataclass
-class _Rect:
+class _Rect(_Op):
     x: float
     y: float  # top
     w: float
@@ -143,24 +144,18 @@ class _Rect:
     face: str
     edge: str | None = None
 
-    def shifted(self, dy: float) -> "_Rect":
-        return replace(self, y=self.y + dy)
-
 
 @dataclass
-class _Image:
+class _Image(_Op):
     x: float
     y: float  # top
     w: float
     h: float
     pixels: np.ndarray
 
-    def shifted(self, dy: float) -> "_Image":
-        return replace(self, y=self.y + dy)
-
 
 @dataclass
-class _PageRef:
+class _PageRef(_Op):
     """The number of the page a heading lands on, drawn once the flow knows it."""
 
     x: float
@@ -168,9 +163,6 @@ class _PageRef:
     anchor: int
     font: _Font
     ha: str = "right"
-
-    def shifted(self, dy: float) -> "_PageRef":
-        return replace(self, y=self.y + dy)
 
     def resolved(self, pages: dict[int, int]) -> _Text:
         return _Text(self.x, self.y, str(pages.get(self.anchor, "")), self.font, self.ha)
