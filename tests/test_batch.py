@@ -63,6 +63,17 @@ def test_batch_settings_are_the_review_settings():
     assert asked <= set(settings_readers()) == names - {"flags"}
 
 
+def test_a_line_may_name_a_second_model(tmp_path, sample):
+    """The column second_model reaches the review's inputs; a missing file is the line's own
+    problem, named as the command line names it."""
+    batch = _csv(tmp_path / "b.csv", ["model", "data", "second_model"], [
+        [sample["forest"], sample["data"], sample["xgboost"]],
+        [sample["forest"], sample["data"], "nowhere.json"]])
+    good, bad = read_batch(batch)
+    assert good.problem is None and good.inputs().second_model == sample["xgboost"]
+    assert "the second model file" in bad.problem and "nowhere.json" in bad.problem
+
+
 def test_toml_batch_read_names_and_relative_paths(tmp_path, sample):
     rel = os.path.relpath(sample["forest"], tmp_path)
     batch = tmp_path / "reviews.toml"

@@ -1,7 +1,8 @@
 """``grovewise batch``: many reviews listed in one small file, each run on an executor worker.
 
 A batch file lists one review per CSV line or per TOML ``[[review]]`` entry: ``model`` and
-``data``, optionally ``name``, ``target``, ``holdout``, ``trusted`` and any review setting
+``data``, optionally ``name``, ``target``, ``holdout``, ``second_model`` (a model reviewed
+beside the first, as ``grovewise review --second-model``), ``trusted`` and any review setting
 under its :class:`~grovewise.review.ReviewSettings` name. Relative paths start at the batch
 file's folder. Every line is checked before anything runs; a line with a problem gets its
 own error and the other lines still run.
@@ -191,7 +192,8 @@ def settings_readers() -> dict:
 # The inputs of a line, each with how to read it.
 INPUTS = {"name": (_text, "text"), "model": (_text, "a path"), "data": (_text, "a path"),
           "target": (_text, "a column name"), "holdout": (_text, "a path"),
-          "trusted": (_yes_no, "yes or no")}
+          "second_model": (_text, "a path"), "trusted": (_yes_no, "yes or no")}
+FILES = ("model", "data", "holdout", "second_model")
 
 
 class _LineProblem(Exception):
@@ -208,6 +210,7 @@ class BatchLine:
     data: Path | None = None
     target: str | None = None
     holdout: Path | None = None
+    second_model: Path | None = None
     trusted: bool = False
     settings: dict = field(default_factory=dict)
     problem: str | None = None
@@ -216,7 +219,7 @@ class BatchLine:
         from .review import ReviewInputs
 
         return ReviewInputs(self.model, self.data, target=self.target, holdout=self.holdout,
-                            trusted=self.trusted)
+                            trusted=self.trusted, second_model=self.second_model)
 
     def review_settings(self):
         from .review import ReviewSettings
@@ -316,8 +319,8 @@ def _check(folder: Path, where: str, values: dict) -> BatchLine:
         line.name = read.get("name", "")
         line.target = read.get("target") or None
         line.trusted = read.get("trusted", False)
-        line.model, line.data, line.holdout = (_path(folder, read.get(k))
-                                               for k in ("model", "data", "holdout"))
+        line.model, line.data, line.holdout, line.second_model = (
+            _path(folder, read.get(k)) for k in FILES)
         if "" in values:
             raise _LineProblem(f"{values['']}; give one cell per header column.")
         unknown = [k for k in values if k not in INPUTS and k not in settings]
@@ -325,8 +328,8 @@ def _check(folder: Path, where: str, values: dict) -> BatchLine:
             raise _LineProblem(
                 f"unknown column {', '.join(unknown)}; a line has {', '.join(INPUTS)} and the "
                 f"review settings {', '.join(settings)}.")
-        for key in ("model", "data", "holdout"):
-            _check_file(folder, key, getattr(line, key), required=key != "holdout")
+        for key in FILES:
+            _check_file(folder, key, getattr(line, key), required=key in ("model", "data"))
         line.settings = {k: _value(k, v) for k, v in values.items() if k in settings}
         line.review_settings()
     except (_LineProblem, SettingError) as exc:
@@ -356,8 +359,9 @@ def _check_file(folder: Path, key: str, path: Path | None, required: bool) -> No
                                "files.")
         return
     if not path.is_file():
-        raise _LineProblem(f"the {key} file {path} does not exist; fix the path (a relative "
-                           f"path starts at the batch file's folder, {folder.absolute()}).")
+        raise _LineProblem(f"the {key.replace('_', ' ')} file {path} does not exist; fix the "
+                           "path (a relative path starts at the batch file's folder, "
+                           f"{folder.absolute()}).")
 
 
 def check_lines(lines: list[BatchLine], out: Path) -> None:
