@@ -21,6 +21,7 @@ one :class:`~grovewise.executor.Executor` (inline with one job).
 from __future__ import annotations
 
 import threading
+import time
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -235,10 +236,12 @@ class _RefitOne:
         from .mimic import mimic
         from .solver import Cancel
 
+        started = time.perf_counter()  # the re-fit's time limit covers its preparation too
         rows = bootstrap_rows(shared.train_rows, shared.seed, b)
         stop = Cancel(self.cancel) if self.cancel is not None else None
         res = mimic(shared.forest, shared.X[rows], holdout=None, proba=shared.proba[rows],
-                    random_state=int(shared.seed) + int(b), cancel=stop, **shared.options)
+                    random_state=int(shared.seed) + int(b), cancel=stop, started=started,
+                    **shared.options)
         names = list(shared.forest.feature_names)
         Xe = shared.X[shared.eval_rows]
         return _Refit(
