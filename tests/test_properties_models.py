@@ -114,10 +114,12 @@ def read(path: Path, exact: bool = True):
         return forest
 
 
-def write(folder: str, name: str, data: bytes) -> Path:
-    path = Path(folder) / name
-    path.write_bytes(data)
-    return path
+def read_as(name: str, data: bytes) -> None:
+    """``data`` written as file ``name`` in a fresh folder, then read under the property."""
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / name
+        path.write_bytes(data)
+        read(path)
 
 
 # ---------------------------------------------------------------------------- any bytes
@@ -128,8 +130,7 @@ def write(folder: str, name: str, data: bytes) -> Path:
                       .flatmap(lambda head: st.binary(max_size=400).map(lambda t: head + t))),
        suffix=st.sampled_from(SUFFIXES))
 def test_any_bytes_are_a_model_or_a_named_error(data, suffix):
-    with tempfile.TemporaryDirectory() as folder:
-        read(write(folder, f"model{suffix}", data))
+    read_as(f"model{suffix}", data)
 
 
 @st.composite
@@ -157,8 +158,7 @@ def damaged_bytes(draw, raw: bytes):
 def test_real_model_files_with_damaged_bytes_are_a_model_or_a_named_error(seeds, data):
     source = data.draw(st.sampled_from(seeds["any"]), label="file")
     damaged = data.draw(damaged_bytes(source.read_bytes()), label="bytes")
-    with tempfile.TemporaryDirectory() as folder:
-        read(write(folder, source.name, damaged))
+    read_as(source.name, damaged)
 
 
 # ---------------------------------------------------------------------------- XGBoost JSON
@@ -218,8 +218,7 @@ def damaged_xgboost(draw, doc: dict):
 def test_damaged_xgboost_json_is_a_model_or_a_named_error(seeds, data):
     source = data.draw(st.sampled_from(seeds["xgboost_json"]), label="model")
     doc = data.draw(damaged_xgboost(json.loads(source.read_text())), label="damaged")
-    with tempfile.TemporaryDirectory() as folder:
-        read(write(folder, "model.json", json.dumps(doc).encode()))
+    read_as("model.json", json.dumps(doc).encode())
 
 
 # ---------------------------------------------------------------------------- LightGBM text
@@ -263,8 +262,7 @@ def damaged_lightgbm(draw, text: str):
 def test_damaged_lightgbm_text_is_a_model_or_a_named_error(seeds, data):
     source = data.draw(st.sampled_from(seeds["lightgbm_text"]), label="model")
     text = data.draw(damaged_lightgbm(source.read_text()), label="damaged")
-    with tempfile.TemporaryDirectory() as folder:
-        read(write(folder, "model.txt", text.encode()))
+    read_as("model.txt", text.encode())
 
 
 # ---------------------------------------------------------------------------- the corpus

@@ -102,8 +102,6 @@ INTERACTION_ROWS = (1, 10_000)  # as ReviewSettings.interaction_rows
 
 
 def _check_range(option: str, value: int, limits: tuple[int, int]) -> None:
-    from .errors import SettingError
-
     lo, hi = limits
     if not lo <= value <= hi:
         raise SettingError(f"{option} {value} is out of range; give a whole number from {lo:,} "
@@ -112,8 +110,6 @@ def _check_range(option: str, value: int, limits: tuple[int, int]) -> None:
 
 def _feature_indices(forest, features) -> list[int] | None:
     """``--features`` as indices into the model's features, each name checked."""
-    from .errors import SettingError
-
     if features is None:
         return None
     names = list(forest.feature_names)
@@ -421,7 +417,6 @@ def _reviewer_from(args):
 def cmd_decide(args) -> int:
     """Record or change the decision on a written review folder."""
     from .decision import decision_name, record_decision
-    from .errors import SettingError
     from .preflight import check_out_folder
     from .signing import is_signed
 
@@ -610,8 +605,6 @@ def cmd_window(args) -> int:
         return run_window(review=Review.open(args.review), capture_dir=args.capture)
     if not args.sample and not (args.model and args.data):
         if args.model or args.data:
-            from .errors import SettingError
-
             raise SettingError("give both MODEL and DATA, or --sample, or neither.")
     if args.model and args.data and not args.sample:
         _check_files(args.model, args.data, must_exist=True)  # before the window opens
@@ -670,8 +663,6 @@ def _add_decision_args(p: argparse.ArgumentParser, required: bool = False) -> No
 
 def _parse_flags(items) -> dict[str, str]:
     """``--flag NAME=protected`` (or forbidden), repeated."""
-    from .errors import SettingError
-
     flags = {}
     for item in items or []:
         name, sep, kind = item.rpartition("=")

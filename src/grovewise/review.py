@@ -660,7 +660,7 @@ class Review:
     def _run_second_model(self, report: Progress, cancel: threading.Event | None):
         """The second model beside the first: its feature usage, its classes on every row,
         and how well the first model's surrogate explains it (None without one)."""
-        from .analysis.second_model import check_second, second_model
+        from .analysis.second_model import aligned_input, check_second, second_model
 
         path = self.inputs.second_model
         if path is None:
@@ -672,9 +672,7 @@ class Review:
         check_second(self.forest, forest, str(path))
         check_cancel(cancel, "second_model")
         X, _ = self._surrogate_rows()
-        from .analysis.second_model import aligned_input
-
-        predicted = np.argmax(self.rows_proba(), axis=1)
+        predicted = np.argmax(self.rows_proba(), axis=1)  # the first model's, computed once
         sample = stratified_rows(predicted, X.shape[0], self.settings.exactness_rows,
                                  self.settings.seed)
         report("second_model", 0.3, f"checking {path.name} against its library on "
@@ -693,7 +691,8 @@ class Review:
         return second_model(self.forest, forest, X, label=path.name, sha256=sha256_of(path),
                             trees={"surrogate": sur.surrogate, "greedy": sur.greedy},
                             eval_rows=rows, evaluated_on=where, X_trees=self.filled(X),
-                            exactness=exactness.text())
+                            exactness=exactness.text(),
+                            first_classes=self.forest.classes_[predicted])
 
     def _run_stability(self, report: Progress, cancel: threading.Event | None):
         """The surrogate and the greedy tree re-fitted on bootstrap resamples of the training

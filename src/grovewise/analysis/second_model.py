@@ -121,16 +121,17 @@ def check_second(first: Forest, second: Forest, label: str) -> None:
 def second_model(first: Forest, second: Forest, X: np.ndarray, *, label: str, sha256: str,
                  trees: dict | None = None, eval_rows: np.ndarray | None = None,
                  evaluated_on: str = "holdout", X_trees: np.ndarray | None = None,
-                 exactness: str = "") -> SecondModel:
+                 exactness: str = "", first_classes: np.ndarray | None = None) -> SecondModel:
     """Compare ``second`` with ``first`` on the rows ``X`` (the first model's columns).
 
     ``trees`` maps a tree name to an object with ``predict`` (the first model's surrogate
     and greedy tree), scored on ``X_trees[eval_rows]`` (``X`` with missing values filled, as
-    the trees were fitted) against both models' classes.
+    the trees were fitted) against both models' classes. ``first_classes``: the first
+    model's classes on ``X`` when already known (predicted here otherwise).
     """
     check_second(first, second, label)
     X = np.asarray(X, dtype=np.float64)
-    pa = first.predict(X)
+    pa = first.predict(X) if first_classes is None else np.asarray(first_classes)
     pb = second.predict(aligned_input(first, second, X))
     classes = list(first.classes_.tolist())
     index = {c: i for i, c in enumerate(classes)}

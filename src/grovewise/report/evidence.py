@@ -3,11 +3,8 @@ re-fits, and a second model reviewed beside the first."""
 
 from __future__ import annotations
 
+from ..surrogate.stability import TREE_LABELS, TREES
 from .document import Document, Heading, KeyValues, Paragraph, Table
-
-
-def _pct(v) -> str:
-    return "n/a" if v is None else f"{v:.1%}"
 
 
 def _interval(ci) -> str:
@@ -31,15 +28,13 @@ def stability_section(doc: Document, review) -> None:
         f"tree splits there on exactly the same features; agreement and fidelity are measured "
         f"on the {stab.rows:,} {stab.evaluated_on} rows. The rules are called unstable when "
         "the root's features change in more than half of the resamples.", "note"))
-    for name in ("surrogate", "greedy"):
-        t = stab.trees[name]
+    for name in TREES:
         doc.add(Paragraph(stab.sentence(name)))
         doc.add(Table(["node", "the review's features", "recur in", "most common over the "
                        "re-fits", "its share"], stab.to_rows(name),
-                      caption=f"Recurrence of the {'surrogate' if name == 'surrogate' else 'greedy tree'}"
-                              f"'s split features per node"))
+                      caption=f"Recurrence of the {TREE_LABELS[name]}'s split features per node"))
     rows = []
-    for name in ("surrogate", "greedy"):
+    for name in TREES:
         t = stab.trees[name]
         f = t.fidelity_spread()
         rows.append([name, t.root_recurrence, t.pairwise_agreement, f["min"], f["mean"],

@@ -30,6 +30,7 @@ from ..errors import SettingError
 from .tree import ObliqueTree, reachable_splits
 
 TREES = ("surrogate", "greedy")
+TREE_LABELS = {"surrogate": "surrogate", "greedy": "greedy tree"}  # as sentences name them
 UNSTABLE_ROOT_SHARE = 0.5  # the root's features recur in less than this share: unstable
 # the re-fits' mean fidelity this far below the review's tree: their time limit is suspect
 SHORT_FIT_GAP = 0.02
@@ -143,7 +144,7 @@ class RuleStability:
     def sentence(self, name: str = "surrogate") -> str:
         """The finding for one tree in words."""
         t = self.trees[name]
-        label = "surrogate" if name == "surrogate" else "greedy tree"
+        label = TREE_LABELS[name]
         root = ", ".join(t.reference[0]) if t.reference and t.reference[0] else "no split"
         share = t.root_recurrence
         spread = t.fidelity_spread()
@@ -165,7 +166,7 @@ class RuleStability:
                       "raise stability_time_limit to tell.")
         return words
 
-    def to_rows(self, name: str, feature_names_text=None) -> list[list[str]]:
+    def to_rows(self, name: str) -> list[list[str]]:
         """Per node: position, the review's features, their recurrence, the most common set
         and its share."""
         t = self.trees[name]
