@@ -46,6 +46,7 @@ SPEC = {
     "depth": lambda v: _whole(v) and 1 <= v <= 4,
     "max_features_per_split": lambda v: v is None or (_whole(v) and v >= 1),
     "alpha": lambda v: _real(v) and v >= 0,
+    "oblique_level": lambda v: v is None or (_real(v) and 0 < v <= 1),
     "proximity_threshold": lambda v: _real(v) and 0 < v <= 1,
     "time_limit": lambda v: _real(v) and v > 0,
     "node_limit": lambda v: v is None or (_whole(v) and v >= 1),

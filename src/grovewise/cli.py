@@ -318,7 +318,8 @@ def _settings_from(args):
     from .review import ReviewSettings
 
     return ReviewSettings(depth=args.depth, max_features_per_split=args.max_features_per_split,
-                          alpha=args.alpha, proximity_threshold=args.proximity_threshold,
+                          alpha=args.alpha, oblique_level=args.oblique_level,
+                          proximity_threshold=args.proximity_threshold,
                           time_limit=args.time_limit, node_limit=args.node_limit,
                           holdout_share=args.holdout_share, seed=args.seed,
                           flags=_parse_flags(args.flag),
@@ -349,6 +350,8 @@ def _run_review(inputs, settings, out: str, reviewer=None, jobs: int | None = No
     print(f"review of {inputs.model} on {inputs.data}: done in {time.perf_counter() - start:.1f} s")
     print(f"  exactness     {review.intake.exactness.text()}")
     _print_fidelities(sur, "  ")
+    if sur.note:
+        print(f"  choice        {sur.note}")
     print(f"  certificate   {certificate_line(review)}")
     for gf in getattr(sur, "group_fidelity", None) or []:
         print(f"  by group      {gf.sentence()}")
@@ -612,6 +615,16 @@ def cmd_window(args) -> int:
                       target=args.target, capture_dir=args.capture)
 
 
+def _level_or_none(text: str) -> float | None:
+    """A significance level, or None for 'none' (checked with the other settings)."""
+    if text.strip().lower() == "none":
+        return None
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number or 'none'") from None
+
+
 def _add_solve_args(p: argparse.ArgumentParser) -> None:
     from .review import ReviewSettings
 
@@ -621,6 +634,10 @@ def _add_solve_args(p: argparse.ArgumentParser) -> None:
                    help=f"features per split at most (default {d.max_features_per_split})")
     p.add_argument("--alpha", type=float, default=d.alpha,
                    help=f"price per feature used, against fidelity (default {d.alpha})")
+    p.add_argument("--oblique-level", type=_level_or_none, default=d.oblique_level,
+                   metavar="P", help="keep multi-feature splits only when they agree on "
+                   "significantly more training rows than the best axis-aligned tree, at this "
+                   f"level; none: the lower objective wins (default {d.oblique_level})")
     p.add_argument("--proximity-threshold", type=float, default=d.proximity_threshold,
                    help=f"records this alike share a leaf (default {d.proximity_threshold})")
     p.add_argument("--time-limit", type=float, default=d.time_limit,

@@ -180,7 +180,8 @@ def reproduce(manifest_path, *, trusted: bool = False, progress=None,
         _rescore(verdict, saved, files)
     if not verdict.passed or not refit:
         return verdict
-    settings = ReviewSettings(**manifest["settings"])
+    # a manifest without oblique_level was made when the lower objective always won
+    settings = ReviewSettings(**{"oblique_level": None, **manifest["settings"]})
     review = Review(ReviewInputs(files["model"], files["data"], target=inputs.get("target"),
                                  holdout=files["holdout"], trusted=bool(inputs.get("trusted")),
                                  second_model=files["second_model"]),

@@ -81,6 +81,9 @@ class ReviewSettings:
     depth: int = 2
     max_features_per_split: int | None = READABLE_DEFAULTS["max_features_per_split"]
     alpha: float = READABLE_DEFAULTS["alpha"]
+    # Multi-feature splits are kept only when they agree on significantly more training rows
+    # than the best axis-aligned candidate, at this level (None: the lower objective wins).
+    oblique_level: float | None = READABLE_DEFAULTS["oblique_level"]
     proximity_threshold: float = 0.9
     time_limit: float = 60.0
     node_limit: int | None = None
@@ -121,6 +124,9 @@ class ReviewSettings:
                 _whole(self.max_features_per_split)
                 and self.max_features_per_split >= 1), "a whole number of at least 1, or none"),
             ("alpha", _number(self.alpha) and self.alpha >= 0, "zero or more"),
+            ("oblique_level", self.oblique_level is None or (
+                _number(self.oblique_level) and 0 < self.oblique_level <= 1),
+             "above 0 and at most 1, or none"),
             ("proximity_threshold", _number(self.proximity_threshold)
              and 0 < self.proximity_threshold <= 1, "above 0 and at most 1"),
             ("time_limit", _number(self.time_limit) and self.time_limit > 0,
@@ -616,7 +622,7 @@ class Review:
                            proximity_threshold=st.proximity_threshold,
                            holdout=held if held.size else None,
                            max_features_per_split=st.max_features_per_split, alpha=st.alpha,
-                           time_limit=st.time_limit, node_limit=st.node_limit,
+                           oblique_level=st.oblique_level, time_limit=st.time_limit, node_limit=st.node_limit,
                            random_state=st.seed, forbidden_features=forbidden or None,
                            progress=on_progress, cancel=stop, mps_path=program, proba=proba,
                            proximity_rows=st.proximity_rows, started=started,
@@ -708,8 +714,8 @@ class Review:
         X, _ = self._surrogate_rows()
         sur = self.surrogate
         options = {k: sur.settings.get(k) for k in (
-            "depth", "proximity_threshold", "max_features_per_split", "alpha", "node_limit",
-            "forbidden_features", "usage_floor", "usage_weight")}
+            "depth", "proximity_threshold", "max_features_per_split", "alpha", "oblique_level",
+            "node_limit", "forbidden_features", "usage_floor", "usage_weight")}
         options["proximity_rows"] = st.proximity_rows
         B = int(st.stability_resamples)
         report("stability", 0.0, f"re-fitting the surrogate and the greedy tree on {B} "

@@ -71,6 +71,12 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     prove : bool, default=True
         Prove a bound on every training row for the certificate (``bound_``, ``proof_``);
         False leaves it out, for a re-fit that only needs the tree (the stability step).
+    oblique_level : float in (0, 1] or None, default=None
+        When set, multi-feature splits must earn their place: the best candidate using them
+        is kept over the best axis-aligned candidate only if it agrees with the ensemble on
+        significantly more training rows (one-sided exact McNemar test on the rows where
+        the two disagree, at this level); ``choice_`` says which way it went and why. None:
+        the lower objective wins. :func:`~grovewise.surrogate.mimic` uses 0.05.
 
     Categorical features (``fit(..., category_order=...)``, see :mod:`.categories`): the data
     keeps category codes in such a column; the estimator replaces each code by its
@@ -121,6 +127,9 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     optimal_axis_ : AxisTree or None
         The exact optimal axis-aligned tree of the same depth (depth 1 and 2), the second
         baseline; ``objective_`` is its weighted disagreement on every training row.
+    choice_ : str
+        With ``oblique_level``: whether multi-feature splits were kept, with the counts and
+        the test's p-value ("" otherwise, or when the best candidate is axis-aligned).
     greedy_ : DecisionTreeClassifier or EncodedTree
         The greedy baseline (CART); with categorical features it was fit on ranks, and is
         wrapped so that it too is given codes.
@@ -133,7 +142,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
     def __init__(self, depth=2, max_features_per_split=None, alpha=0.0, min_leaf_size=1,
                  time_limit=30.0, random_state=None, *, node_limit=None, mip_gap=None,
                  proximity_penalty=None, sample_size=None, routing="node", threads=None,
-                 prove=True):
+                 prove=True, oblique_level=None):
         self.depth = depth
         self.max_features_per_split = max_features_per_split
         self.alpha = alpha
@@ -147,6 +156,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         self.routing = routing
         self.threads = threads
         self.prove = prove
+        self.oblique_level = oblique_level
 
     # ------------------------------------------------------------------ checks
     def _check_params(self) -> None:
@@ -177,6 +187,10 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
         integer("node_limit", 0, none=True)
         real("mip_gap", 0.0, none=True)
         real("proximity_penalty", 0.0, none=True)
+        real("oblique_level", 0.0, strict=True, none=True)
+        if self.oblique_level is not None and self.oblique_level > 1:
+            raise SettingError(f"oblique_level={self.oblique_level!r} is not valid: give a "
+                               "number in (0, 1] or None")
         integer("sample_size", 2, none=True)
         integer("threads", 1, none=True)
         if self.routing not in ROUTINGS:
@@ -280,7 +294,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
             seed=seed, sample_size=self.sample_size, routing=self.routing,
             proximity_penalty=self.proximity_penalty, threads=self.threads,
             mps_path=None if mps_path is None else str(mps_path), started=started, solo=solo,
-            prove=bool(self.prove))
+            prove=bool(self.prove), oblique_level=self.oblique_level)
         hard = pairs if self.proximity_penalty is None else None
         soft = pairs if self.proximity_penalty is not None else None
         res = run_pipeline(Xk, yk, wk, len(self.classes_), scaling, st, must_link=hard,
@@ -369,6 +383,7 @@ class ObliqueSurrogate(ClassifierMixin, BaseEstimator):
                              res.proof.sentence(1.0 - self.fidelity_))
         self.status_ = res.status
         self.winner_ = res.winner
+        self.choice_ = res.choice
         self.stages_ = res.stages
         leaf = rounded.route_scaled(Xs)
         self.leaf_rows_ = np.bincount(leaf, minlength=n_leaves(rounded.depth))

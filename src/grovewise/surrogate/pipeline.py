@@ -36,8 +36,9 @@ from .program import ProgramData, build_program, choose_margin
 from ..sampling import stratified_rows
 from .sample import Sample, auto_sample_size, build_sample, union_find_groups
 from .solver import Cancel, Progress, SolveResult, compile_program, solve, write_compiled_mps
-from .tree import (ObliqueTree, Scaling, depth_used, objective, trivial_tree,
-                   weighted_disagreement, with_majority_classes, without_empty_splits)
+from .tree import (ObliqueTree, Scaling, depth_used, objective, reachable_splits,
+                   trivial_tree, weighted_disagreement, with_majority_classes,
+                   without_empty_splits)
 
 
 @dataclass
@@ -76,6 +77,11 @@ class PipelineSettings:
     axis_share: float = 0.15
     # above this many rows, the exact axis-aligned tree is searched on the search rows
     axis_rows: int = 50_000
+    # Multi-feature splits must earn their place: the best candidate whose splits use two
+    # features or more is kept over the best axis-aligned one only if it agrees with the
+    # ensemble on significantly more training rows, at this level (one-sided exact McNemar
+    # test on the rows where the two trees disagree). None: the lower objective wins.
+    oblique_level: float | None = None
 
     @property
     def exact(self) -> bool:
@@ -133,6 +139,8 @@ class PipelineResult:
     axis_tree: ObliqueTree | None = None
     axis_note: str = ""
     disagreement: float = 0.0  # weighted disagreement of ``tree`` on every training row
+    by_objective: str = ""  # the stage the objective alone would choose
+    choice: str = ""  # why the answer is axis-aligned or not, in words (``oblique_level``)
 
     def to_dict(self) -> dict:
         return {
@@ -143,6 +151,7 @@ class PipelineResult:
             "first_candidate_time": self.first_candidate_time, "build_time": self.build_time,
             "solve_time": self.solve_time, "total_time": self.total_time,
             "proof": None if self.proof is None else self.proof.to_dict(),
+            "by_objective": self.by_objective, "choice": self.choice,
             "optimal_axis": None if self.axis is None else {
                 "objective": self.axis.objective, "optimal": self.axis.optimal,
                 "lower_bound": self.axis.lower_bound, "seconds": self.axis.seconds,
@@ -152,6 +161,14 @@ class PipelineResult:
 
 # the status word when a baseline is the answer
 _FALLBACK = {"greedy": "greedy_fallback", "optimal_axis": "axis_fallback"}
+_STAGE_WORDS = {"greedy": "the greedy tree (CART)",
+                "optimal_axis": "the exact optimal axis-aligned tree",
+                "local_search": "the axis-aligned tree of the node-by-node search"}
+
+
+def is_oblique(tree: ObliqueTree) -> bool:
+    """Does some split that decides something use two features or more?"""
+    return bool(((tree.coef != 0).sum(axis=1)[reachable_splits(tree)] > 1).any())
 
 
 class _Board:
@@ -163,7 +180,8 @@ class _Board:
     the exact axis-aligned tree's (a candidate too); with them, a tree that keeps more groups
     wins over it. A must-link group is kept whenever a candidate that keeps it is at
     least as faithful as the greedy tree; the groups the answer separates are counted in its
-    stage record (``separated_groups``), never dropped silently.
+    stage record (``separated_groups``), never dropped silently. With ``oblique_level``,
+    :meth:`prefer_axis` may then hand the answer to the best axis-aligned candidate.
     """
 
     def __init__(self, Xs, y, wn, K, st: PipelineSettings, group, t0):
@@ -178,16 +196,52 @@ class _Board:
         fid = 1.0 - weighted_disagreement(tree, self.Xs, self.y, self.wn)
         sep = separated_groups(tree, self.Xs, self.group)
         now = time.perf_counter()
-        self.stages.append(StageRecord(name=name, objective=obj, fidelity=fid,
-                                       elapsed=now - self.t0, duration=now - started,
-                                       separated_groups=sep, note=note,
-                                       depth_used=depth_used(tree), tree=tree))
+        record = StageRecord(name=name, objective=obj, fidelity=fid, elapsed=now - self.t0,
+                             duration=now - started, separated_groups=sep, note=note,
+                             depth_used=depth_used(tree), tree=tree)
+        self.stages.append(record)
         if self.floor is None:  # the greedy tree comes first
             self.floor = fid
-        key = (fid < self.floor - 1e-12, sep, obj)
+        key = self.key_of(record)
         if self.best is None or key < self.best[0]:
             self.best = (key, name, tree)
         return tree
+
+    def prefer_axis(self, level: float) -> str:
+        """Keep the best axis-aligned candidate unless the best one, with multi-feature
+        splits, agrees with the ensemble on significantly more training rows (one-sided
+        exact McNemar test at ``level``); returns the choice in words ("" when the best
+        candidate is axis-aligned already)."""
+        from scipy.stats import binom
+
+        key, name, tree = self.best
+        if not is_oblique(tree):
+            return ""
+        axis = [(s_key, s.name, s.tree) for s in self.stages
+                if s.tree is not None and not is_oblique(s.tree)
+                for s_key in [self.key_of(s)] if not s_key[0] and s_key[1] <= key[1]]
+        if not axis:
+            return ""
+        a_key, a_name, a_tree = min(axis, key=lambda c: c[0])
+        ok_best = tree.leaf_class[tree.route_scaled(self.Xs)] == self.y
+        ok_axis = a_tree.leaf_class[a_tree.route_scaled(self.Xs)] == self.y
+        gained = int(np.count_nonzero(ok_best & ~ok_axis))
+        lost = int(np.count_nonzero(~ok_best & ok_axis))
+        p = float(binom.sf(gained - 1, gained + lost, 0.5)) if gained + lost else 1.0
+        axis_words = _STAGE_WORDS.get(a_name, f"the axis-aligned {a_name} tree")
+        test = f"one-sided exact McNemar p = {p:.3g}"
+        if p < level:
+            return (f"Multi-feature splits kept: the tree agrees with the ensemble on {gained:,} "
+                    f"training rows where {axis_words} does not, and disagrees on {lost:,} "
+                    f"where it agrees ({test} < {level:g}).")
+        self.best = (a_key, a_name, a_tree)
+        return (f"{axis_words[0].upper()}{axis_words[1:]} is the answer, over a tree with "
+                f"multi-feature splits whose gain is not significant: that tree agrees with "
+                f"the ensemble on {gained:,} training rows where this one does not, and "
+                f"disagrees on {lost:,} where it agrees ({test}, not below {level:g}).")
+
+    def key_of(self, s: StageRecord) -> tuple:
+        return (s.fidelity < self.floor - 1e-12, s.separated_groups, s.objective)
 
     @property
     def objective(self) -> float:
@@ -398,6 +452,9 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
             else:
                 note = f"the program found no incumbent ({cert.status})"
 
+    by_objective = board.name
+    choice = ("" if st.oblique_level is None or _stop(cancel) else
+              board.prefer_axis(st.oblique_level))
     tree = board.tree
     status, bound, gap = _status(board, cert, prog, sample, cancel, note)
     obj = board.objective
@@ -418,7 +475,8 @@ def run_pipeline(X: np.ndarray, y: np.ndarray, w: np.ndarray, n_classes: int,
         program_size=None if prog is None else prog.size(), readback=readback,
         first_candidate_time=first_time, build_time=build_time, solve_time=solve_time,
         total_time=time.perf_counter() - t0, history=[] if cert is None else cert.history,
-        proof=proof, axis=axis, axis_tree=axis_tree, axis_note=axis_note, disagreement=dis)
+        proof=proof, axis=axis, axis_tree=axis_tree, axis_note=axis_note, disagreement=dis,
+        by_objective=by_objective, choice=choice)
 
 
 def objective_bound(proof: Proof, board: "_Board", st: PipelineSettings) -> float:

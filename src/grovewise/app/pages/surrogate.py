@@ -29,8 +29,10 @@ STATUS_WORDS = {
     "node_limit": "node limit reached: the best tree found, not proved optimal",
     "gap_reached": "stopped at the gap target",
     "cancelled": "cancelled: the best tree found before the solve was stopped",
-    "greedy_fallback": "the greedy tree (CART) is the answer: no other candidate beat it",
-    "axis_fallback": "the exact axis-aligned tree is the answer: no other candidate beat it",
+    "greedy_fallback": "the greedy tree (CART) is the answer: no other candidate beat it, "
+                       "or not significantly (see below)",
+    "axis_fallback": "the exact axis-aligned tree is the answer: no other candidate beat it, "
+                     "or not significantly (see below)",
     "no_incumbent": "the program found no tree in time; the answer is the best other candidate",
     "skipped": "the program did not run; the answer is the best of the fast candidates",
 }
