@@ -104,10 +104,32 @@ class Proof:
         k = ("with any number of features per split" if self.max_features is None else
              f"with at most {self.max_features} feature{'s' if self.max_features != 1 else ''}"
              " per split")
+        if self.disagreement_bound <= 0:
+            return (f"Nothing is proven: no tree of depth {self.depth} {k} was shown to fall "
+                    f"short of agreeing with the ensemble on every one of the {self.n_rows:,} "
+                    f"training rows. Tried: {self.tried()}. This tree agrees on "
+                    f"{100 * (1 - disagreement):.1f}% (weighted); gap "
+                    f"{self.gap(disagreement):.2f}.")
         return (f"No tree of depth {self.depth} {k} agrees with the ensemble on more than "
                 f"{100 * self.fidelity_bound:.1f}% (weighted) of the {self.n_rows:,} training "
                 f"rows; this tree agrees on {100 * (1 - disagreement):.1f}%; gap "
                 f"{self.gap(disagreement):.2f}. Bound: {self.covers}.")
+
+    def tried(self) -> str:
+        """What was tried for a bound, in words (for a certificate that proves nothing)."""
+        said = [f"every class can have a leaf of its own at depth {self.depth}"]
+        if "axis" in self.routes:
+            said.append("the exact axis-aligned search found a tree that agrees everywhere")
+        if self.parts:
+            if len(self.parts) == 1 and self.parts[0].rows.size == self.n_rows:
+                said.append(f"the program's bound on every row stayed 0 "
+                            f"({self.parts[0].seconds:.1f} s, {self.parts[0].status})")
+            else:
+                solved = sum(p.status == "optimal" for p in self.parts)
+                said.append(f"the program proved 0 on each of {len(self.parts)} parts of "
+                            f"conflicting neighbours, {solved} of them solved to optimality "
+                            f"(a tree of the class fits each without a disagreement)")
+        return "; ".join(said)
 
     def write_mps(self, folder) -> list[Path]:
         """Write every proven part's program as ``part_NN.mps`` into ``folder``."""
