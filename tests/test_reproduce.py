@@ -61,6 +61,7 @@ def test_an_untouched_review_reproduces_exactly(written):
 @pytest.mark.parametrize("key, path", [
     ("stability", ("surrogate", "pairwise_agreement")),
     ("stability", ("greedy", "fidelity", "max")),
+    ("stability", ("surrogate", "handed_to_axis")),
     ("second_model", ("agreement",)),
     ("second_model", ("explains", "surrogate", "to_second")),
 ])

@@ -110,6 +110,13 @@ def test_a_fixed_seed_gives_identical_runs_and_a_refit_by_hand_agrees():
     index = {c: i for i, c in enumerate(forest.classes_.tolist())}
     assert [index[c] for c in again.surrogate.predict(held).tolist()] == \
         stab.surrogate.predicted[1].tolist()
+    # the re-fits whose answer went to an axis-aligned tree (oblique_level), counted by hand
+    first = mimic(forest, X[bootstrap_rows(ref.train_rows, 5, 0)], holdout=None,
+                  random_state=5, time_limit=30.0, **options)
+    handed = sum(r.surrogate.result_.by_objective != r.winner for r in (first, again))
+    assert stab.handed_to_axis == handed
+    said = f"In {handed} of 2 re-fits the best tree's multi-feature splits"
+    assert (said in stab.sentence("surrogate")) == (handed > 0)
 
 
 def test_node_names_and_bad_settings():

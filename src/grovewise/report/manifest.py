@@ -133,12 +133,14 @@ def stated_stability(stability) -> dict | None:
     """The stability figures the report states, per tree (None when the step did not run)."""
     if stability is None:
         return None
-    return {name: {"root_recurrence": t.root_recurrence, "unstable": t.unstable,
-                   "pairwise_agreement": t.pairwise_agreement,
-                   "reference_fidelity": t.reference_fidelity,
-                   "fidelity": t.fidelity_spread(),
-                   "recurrence": [float(v) for v in t.recurrence()]}
-            for name, t in stability.trees.items()}
+    stated = {name: {"root_recurrence": t.root_recurrence, "unstable": t.unstable,
+                     "pairwise_agreement": t.pairwise_agreement,
+                     "reference_fidelity": t.reference_fidelity,
+                     "fidelity": t.fidelity_spread(),
+                     "recurrence": [float(v) for v in t.recurrence()]}
+              for name, t in stability.trees.items()}
+    stated["surrogate"]["handed_to_axis"] = int(stability.handed_to_axis)
+    return stated
 
 
 def stated_second_model(second) -> dict | None:

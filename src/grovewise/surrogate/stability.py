@@ -128,6 +128,9 @@ class RuleStability:
     evaluated_on: str
     eval_rows: np.ndarray
     trees: dict = field(default_factory=dict)  # name -> TreeStability
+    # re-fits whose best tree had multi-feature splits without significantly more agreeing
+    # training rows than the best axis-aligned tree (oblique_level): their answer is that one
+    handed_to_axis: int = 0
 
     @property
     def rows(self) -> int:
@@ -164,6 +167,14 @@ class RuleStability:
             words += (f" The re-fits, {self.time_limit:g} s each, fall short of the review's "
                       "tree, so part of the change may come from their short time limit: "
                       "raise stability_time_limit to tell.")
+        if name == "surrogate" and self.handed_to_axis:
+            words += (f" In {self.handed_to_axis} of {t.resamples} re-fits the best tree's "
+                      "multi-feature splits did not agree on significantly more training rows "
+                      "than the best axis-aligned tree, so that re-fit's answer is axis-aligned")
+            words += (f"; the review's own fit found them significant, so the re-fits' "
+                      f"{self.time_limit:g} s each may be too short to find them: raise "
+                      "stability_time_limit to tell." if any(len(f) > 1 for f in t.reference)
+                      else ".")
         return words
 
     def to_rows(self, name: str) -> list[list[str]]:
@@ -211,6 +222,9 @@ class _Refit:
 
     sets: dict
     predicted: dict
+    # the best tree had multi-feature splits, but not significantly better than the best
+    # axis-aligned one (oblique_level), so the answer is axis-aligned
+    handed_to_axis: bool = False
 
 
 @dataclass
@@ -249,7 +263,8 @@ class _RefitOne:
             sets={"surrogate": split_features(res.surrogate.tree_, names),
                   "greedy": split_features(res.surrogate.result_.greedy_tree, names)},
             predicted={"surrogate": np.asarray(res.surrogate.predict(Xe)),
-                       "greedy": np.asarray(res.greedy.predict(Xe))})
+                       "greedy": np.asarray(res.greedy.predict(Xe))},
+            handed_to_axis=res.surrogate.result_.by_objective != res.winner)
 
 
 def rule_stability(forest, X: np.ndarray, reference, *, resamples: int = 10,
@@ -326,7 +341,7 @@ def rule_stability(forest, X: np.ndarray, reference, *, resamples: int = 10,
                 == forest.classes_[truth].astype(object))) if eval_rows.size else None)
     return RuleStability(resamples=int(resamples), seed=int(seed), time_limit=float(time_limit),
                          evaluated_on=evaluated_on, eval_rows=eval_rows.astype(np.int64),
-                         trees=trees)
+                         trees=trees, handed_to_axis=sum(f.handed_to_axis for f in fits))
 
 
 def fidelities(preds: np.ndarray, truth: np.ndarray) -> np.ndarray:
