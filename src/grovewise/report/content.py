@@ -102,6 +102,16 @@ def fidelity_text(result, part: str, model: str = "surrogate") -> str:
     return f"{pct(v)} (95% interval {pct(ci[0])} to {pct(ci[1])})" if ci else pct(v)
 
 
+def _choice_words(sur) -> str:
+    """The candidates table's word on the choice when an axis-aligned tree was handed it."""
+    level = (sur.settings or {}).get("oblique_level")
+    if level is None:
+        return ""
+    return (f", unless it has multi-feature splits that do not agree on significantly more rows "
+            f"than the best axis-aligned one, at level {level:g}: then that one; the answer "
+            f"here is {sur.winner}")
+
+
 def _axis_rows(review) -> list[tuple[str, str]]:
     """The exact axis-aligned tree's summary row (none for a review saved before it, or at
     depth 3 and more, where it is not computed)."""
@@ -237,6 +247,7 @@ def _summary(doc: Document, review) -> None:
                         f"{fidelity_text(sur, 'train', 'greedy')} train / "
                         f"{fidelity_text(sur, 'holdout', 'greedy')} holdout"),
         *_axis_rows(review),
+        *([("Choice of tree", sur.note)] if sur.note else []),
         ("Certificate", certificate_line(review)),
         ("Solver", f"{_num(sur.certificate.get('time'), 3)} s; winning stage: {sur.winner}"),
         *evidence_rows(review),
@@ -253,8 +264,6 @@ def _summary(doc: Document, review) -> None:
         doc.add(Heading("Weak spots", 2))
         for spot in spots:
             doc.add(Paragraph(spot.text, "note"))
-    if sur.note:
-        doc.add(Paragraph(sur.note, "note"))
     doc.add(Paragraph(CAUTIONS, "caution"))
     doc.add(Figure(surrogate_tree_figure(sur.surrogate, width=7.5), width=0.85,
                    caption="The surrogate's rules (yes to the left); details in the Surrogate "
@@ -510,7 +519,8 @@ def _surrogate(doc: Document, review) -> None:
                   [[s.get("name"), s.get("objective"), s.get("fidelity"), s.get("elapsed"),
                     s.get("note") or ""] for s in sur.stages],
                   caption="Candidates by stage, each scored on every training row (the best "
-                          "one is kept)", formats=[None, ".5f", ".4f", ".2f", None]))
+                          f"one is kept{_choice_words(sur)})",
+                  formats=[None, ".5f", ".4f", ".2f", None]))
     doc.add(Paragraph("The proven bound holds for every tree of this depth and features per "
                       "split on every training row; the program's own bound covers only the "
                       "points it saw, and its big-M relaxation is weak, so it seldom leaves 0. "
