@@ -25,7 +25,7 @@ def _fit(X, y, level):
 
 def _stage_predictions(est, X, name):
     tree = next(s.tree for s in est.result_.stages if s.name == name)
-    return est.classes_[tree.leaf_class[tree.route_scaled(est._scaled(X))]], tree
+    return est.classes_[tree.predict_index_scaled(est._scaled(X))], tree
 
 
 def _counts(X, y, est, best, axis):

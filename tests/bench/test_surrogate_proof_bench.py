@@ -45,7 +45,7 @@ def _holdout_of_stage(res, forest, X, name: str) -> float:
     est = res.surrogate
     tree = next(s.tree for s in est.result_.stages if s.name == name)
     hold = res.holdout_rows
-    pred = est.classes_[tree.leaf_class[tree.route_scaled(est._scaled(X[hold]))]]
+    pred = est.classes_[tree.predict_index_scaled(est._scaled(X[hold]))]
     return float(np.mean(pred == forest.predict(X[hold])))
 
 

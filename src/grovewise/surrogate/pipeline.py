@@ -217,14 +217,15 @@ class _Board:
         key, name, tree = self.best
         if not is_oblique(tree):
             return ""
-        axis = [(s_key, s.name, s.tree) for s in self.stages
-                if s.tree is not None and not is_oblique(s.tree)
-                for s_key in [self.key_of(s)] if not s_key[0] and s_key[1] <= key[1]]
+        # not below the greedy floor, and keeping at least as many must-link groups
+        axis = [s for s in self.stages if s.tree is not None and not is_oblique(s.tree)
+                and not self.key_of(s)[0] and s.separated_groups <= key[1]]
         if not axis:
             return ""
-        a_key, a_name, a_tree = min(axis, key=lambda c: c[0])
-        ok_best = tree.leaf_class[tree.route_scaled(self.Xs)] == self.y
-        ok_axis = a_tree.leaf_class[a_tree.route_scaled(self.Xs)] == self.y
+        pick = min(axis, key=self.key_of)
+        a_name, a_tree = pick.name, pick.tree
+        ok_best = tree.predict_index_scaled(self.Xs) == self.y
+        ok_axis = a_tree.predict_index_scaled(self.Xs) == self.y
         gained = int(np.count_nonzero(ok_best & ~ok_axis))
         lost = int(np.count_nonzero(~ok_best & ok_axis))
         p = float(binom.sf(gained - 1, gained + lost, 0.5)) if gained + lost else 1.0
@@ -234,7 +235,7 @@ class _Board:
             return (f"Multi-feature splits kept: the tree agrees with the ensemble on {gained:,} "
                     f"training rows where {axis_words} does not, and disagrees on {lost:,} "
                     f"where it agrees ({test} < {level:g}).")
-        self.best = (a_key, a_name, a_tree)
+        self.best = (self.key_of(pick), a_name, a_tree)
         return (f"{axis_words[0].upper()}{axis_words[1:]} is the answer, over a tree with "
                 f"multi-feature splits whose gain is not significant: that tree agrees with "
                 f"the ensemble on {gained:,} training rows where this one does not, and "
